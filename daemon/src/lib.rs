@@ -1,0 +1,10 @@
+//! `wahbad`: robust attitude estimation from vector observations.
+//!
+//! - [`solve`]: the Wahba solvers (least squares, TRIAD, LUD, GNC-TLS, consensus, auto).
+//! - [`verdict`]: residuals, inlier flags, covariance and observability.
+
+pub mod solve;
+pub mod verdict;
+
+pub use solve::{Method, Outcome, Pair, SolveError, SolveParams, Solver};
+pub use verdict::{assess, Observability, Verdict};

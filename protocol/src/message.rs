@@ -1,0 +1,335 @@
+//! The messages of protocol version 1, as serde types.
+//!
+//! Every message is a MessagePack map with string keys; the key `type` names
+//! it. Unknown keys are ignored. Optional keys that are absent are skipped when
+//! encoding, so an encoded message never carries `nil` for "not given".
+
+use serde::{Deserialize, Serialize};
+
+/// Protocol version spoken by this crate.
+pub const PROTOCOL_VERSION: u32 = 1;
+
+/// One protocol message, tagged by its `type` key.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "type", rename_all = "snake_case")]
+#[non_exhaustive]
+pub enum Message {
+    /// First frame of a stream connection (client → daemon).
+    Hello(Hello),
+    /// Answer to a valid `hello` (daemon → client).
+    Welcome(Welcome),
+    /// Fatal error; the daemon closes the connection after sending it.
+    Error(ErrorMessage),
+    /// One vector-pair observation (source → daemon).
+    Obs(Obs),
+    /// One angular-rate sample (source → daemon).
+    Rate(Rate),
+    /// Reference attitude from a bench truth source (source → daemon).
+    Truth(Truth),
+    /// A well-framed message that was not used (daemon → source).
+    Reject(Reject),
+    /// The attitude solved for one epoch (daemon → subscriber).
+    Solution(Solution),
+    /// An alert raised or cleared (daemon → subscriber).
+    Alert(Alert),
+    /// The subscriber fell behind and older messages were dropped for it.
+    Lagged(Lagged),
+    /// Status request (subscriber → daemon, no other keys) or answer
+    /// (daemon → subscriber, with counters).
+    Status(Status),
+}
+
+/// Role announced in `hello`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Role {
+    /// Sends `obs`, `rate` and `truth`.
+    Source,
+    /// Receives `solution`, `alert`, `lagged` and may ask for `status`.
+    Subscriber,
+}
+
+/// `hello`: the first frame a client sends on a stream connection.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Hello {
+    /// Protocol version the client speaks; `1`.
+    pub version: u32,
+    /// What the connection is for.
+    pub role: Role,
+    /// Free text for logs.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub name: Option<String>,
+    /// Shared secret, required when the daemon is configured with one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub token: Option<String>,
+    /// Subscribers only: include per-observation verdicts (default `true`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub verdicts: Option<bool>,
+}
+
+/// `welcome`: the daemon accepted the `hello`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Welcome {
+    /// Protocol version the daemon speaks.
+    pub version: u32,
+    /// Free text naming the server and its version.
+    pub server: String,
+}
+
+/// `error`: a fatal error; the connection is closed after it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ErrorMessage {
+    /// Machine-readable code, see [`ErrorCode`].
+    pub code: String,
+    /// Human-readable explanation.
+    pub message: String,
+}
+
+/// The error codes the daemon uses in `error` messages.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[non_exhaustive]
+pub enum ErrorCode {
+    /// Unsupported protocol version.
+    Version,
+    /// Missing or wrong token.
+    Auth,
+    /// The first frame is not a valid `hello`.
+    Hello,
+    /// Bad length prefix, frame too large, undecodable MessagePack.
+    Framing,
+    /// Connection limit reached.
+    Busy,
+    /// A per-connection timeout expired (hello not sent in time, subscriber not reading).
+    Timeout,
+    /// The daemon is shutting down.
+    Shutdown,
+}
+
+impl ErrorCode {
+    /// The wire string of this code.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            ErrorCode::Version => "version",
+            ErrorCode::Auth => "auth",
+            ErrorCode::Hello => "hello",
+            ErrorCode::Framing => "framing",
+            ErrorCode::Busy => "busy",
+            ErrorCode::Timeout => "timeout",
+            ErrorCode::Shutdown => "shutdown",
+        }
+    }
+}
+
+impl std::fmt::Display for ErrorCode {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+/// `obs`: one vector-pair observation, as decoded (not yet validated).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Obs {
+    /// Sensor id, 1–64 chars of `[A-Za-z0-9_.-]`.
+    pub sensor: String,
+    /// Sequence number, per sensor, increasing.
+    pub seq: u64,
+    /// Measurement time, integer nanoseconds on the bench clock.
+    pub t: i64,
+    /// Measured direction in the body frame (any non-zero length).
+    pub b: [f64; 3],
+    /// The same direction in the reference frame (any non-zero length).
+    pub r: [f64; 3],
+    /// 1-σ angular noise in radians, `0 < sigma < π`; absent: the sensor's default.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sigma: Option<f64>,
+    /// Shared secret; only meaningful on UDP, where there is no `hello`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub token: Option<String>,
+}
+
+/// `rate`: one angular-rate sample, as decoded (not yet validated).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Rate {
+    /// Sensor id of the gyro.
+    pub sensor: String,
+    /// Sequence number, per sensor, increasing.
+    pub seq: u64,
+    /// Sample time, integer nanoseconds on the bench clock.
+    pub t: i64,
+    /// Body angular velocity, rad/s, body frame.
+    pub w: [f64; 3],
+    /// Shared secret; only meaningful on UDP.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub token: Option<String>,
+}
+
+/// `truth`: a reference attitude, never used by the estimator.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Truth {
+    /// Time, integer nanoseconds on the bench clock.
+    pub t: i64,
+    /// Attitude quaternion `[w, x, y, z]` (normalised by validation).
+    pub q: [f64; 4],
+    /// Shared secret; only meaningful on UDP.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub token: Option<String>,
+}
+
+/// `reject`: a well-framed message that was not used; the connection stays open.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Reject {
+    /// Sensor id of the rejected message, when it had a readable one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sensor: Option<String>,
+    /// Sequence number of the rejected message, when it had a readable one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub seq: Option<u64>,
+    /// Why it was rejected.
+    pub reason: String,
+}
+
+/// Quality of a published solution.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum SolutionStatus {
+    /// Inlier fraction at or above the alert level, all three axes observable.
+    Ok,
+    /// Estimate published but the inlier fraction is below the alert level.
+    Degraded,
+    /// The inliers span fewer than two independent directions.
+    Unobservable,
+    /// Fewer than two observations in the window.
+    Insufficient,
+}
+
+impl SolutionStatus {
+    /// The wire string of this status.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            SolutionStatus::Ok => "ok",
+            SolutionStatus::Degraded => "degraded",
+            SolutionStatus::Unobservable => "unobservable",
+            SolutionStatus::Insufficient => "insufficient",
+        }
+    }
+}
+
+/// Per-sensor counts inside a `solution`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SensorCount {
+    /// Sensor id.
+    pub sensor: String,
+    /// Observations of this sensor in the window.
+    pub n: u32,
+    /// Of those, inliers.
+    pub n_inliers: u32,
+}
+
+/// Verdict on one observation of the window.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ObsVerdict {
+    /// Sensor id.
+    pub sensor: String,
+    /// The observation's sequence number.
+    pub seq: u64,
+    /// Angle between the propagated `b` and `A r`, radians.
+    pub residual: f64,
+    /// Whether the χ² gate passed it.
+    pub inlier: bool,
+}
+
+/// `solution`: the attitude solved for one epoch.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Solution {
+    /// Epoch, nanoseconds on the bench clock.
+    pub t: i64,
+    /// Attitude quaternion `[w, x, y, z]`, unit, `w >= 0`; maps reference to body.
+    pub q: [f64; 4],
+    /// 3×3 attitude-error covariance, row-major, rad², body frame.
+    pub cov: [f64; 9],
+    /// Quality of this solution.
+    pub status: SolutionStatus,
+    /// Inliers / observations in the window.
+    pub inlier_fraction: f64,
+    /// Observations in the window.
+    pub n: u32,
+    /// Inliers in the window.
+    pub n_inliers: u32,
+    /// Solver that produced the estimate.
+    pub method: String,
+    /// Solver iterations.
+    pub iterations: u32,
+    /// Per-sensor counts.
+    pub sensors: Vec<SensorCount>,
+    /// Per-observation verdicts; absent when the subscriber asked for none.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub verdicts: Option<Vec<ObsVerdict>>,
+    /// Extension key: `false` when no rate samples reached this window and it
+    /// was treated as static. Absent means rates were used.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub propagated: Option<bool>,
+}
+
+/// Whether an alert starts or ends.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum AlertState {
+    /// The condition has held for the hold time.
+    Raised,
+    /// The condition has been clear (with hysteresis) for the hold time.
+    Cleared,
+}
+
+/// `alert`: a condition raised or cleared.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Alert {
+    /// Data time at which the alert changed state, ns.
+    pub t: i64,
+    /// `inlier_fraction`, `sensor_inliers`, `stale` or `unobservable`.
+    pub kind: String,
+    /// Raised or cleared.
+    pub state: AlertState,
+    /// The measured value that triggered the change.
+    pub value: f64,
+    /// The configured level it was compared with.
+    pub threshold: f64,
+    /// Sensor concerned, for per-sensor kinds.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sensor: Option<String>,
+    /// Human-readable explanation.
+    pub message: String,
+}
+
+/// `lagged`: older messages were dropped for a slow subscriber.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Lagged {
+    /// How many messages were dropped.
+    pub skipped: u64,
+}
+
+/// `status`: a request (no counters) or an answer (all counters present).
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+pub struct Status {
+    /// The counters; `None` in a request.
+    #[serde(flatten, default, skip_serializing_if = "Option::is_none")]
+    pub report: Option<StatusReport>,
+}
+
+/// Counters carried by a `status` answer, counted since the daemon started.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StatusReport {
+    /// Seconds since start.
+    pub uptime_s: f64,
+    /// Source connections open now.
+    pub sources: u64,
+    /// Subscriber connections open now.
+    pub subscribers: u64,
+    /// Observations and rates accepted.
+    pub accepted: u64,
+    /// Messages rejected.
+    pub rejected: u64,
+    /// Messages dropped for lack of room.
+    pub dropped: u64,
+    /// Epochs solved.
+    pub epochs: u64,
+}
