@@ -357,3 +357,6 @@ impl FrameDecoder {
         Err(FrameError::Truncated { buffered, needed })
     }
 }
+
+#[cfg(test)]
+mod tests;
