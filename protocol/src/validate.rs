@@ -225,7 +225,10 @@ mod tests {
         let v = validate_obs(&obs([0.0, 3.0, 4.0], [-2.0, 0.0, 0.0], Some(1e-3))).unwrap();
         assert_eq!(v.b, [0.0, 0.6, 0.8]);
         assert_eq!(v.r, [-1.0, 0.0, 0.0]);
-        assert_eq!((v.sensor.as_str(), v.seq, v.t, v.sigma), ("star_tracker-1.a", 3, -5, Some(1e-3)));
+        assert_eq!(
+            (v.sensor.as_str(), v.seq, v.t, v.sigma),
+            ("star_tracker-1.a", 3, -5, Some(1e-3))
+        );
     }
 
     #[test]
@@ -240,13 +243,19 @@ mod tests {
     #[test]
     fn non_finite_numbers_name_the_field() {
         let err = validate_obs(&obs([0.0, f64::NAN, 1.0], [1.0, 0.0, 0.0], None)).unwrap_err();
-        assert!(matches!(err, ValidationError::NonFinite { field: "b[1]", .. }));
+        assert!(matches!(
+            err,
+            ValidationError::NonFinite { field: "b[1]", .. }
+        ));
         assert_eq!(err.to_string(), "b[1] is not finite (NaN)");
         let err =
             validate_obs(&obs([0.0, 0.0, 1.0], [1.0, 0.0, f64::NEG_INFINITY], None)).unwrap_err();
         assert_eq!(err.to_string(), "r[2] is not finite (-inf)");
         let err = validate_obs(&obs([0.0, 0.0, 1.0], [1.0, 0.0, 0.0], Some(f64::NAN))).unwrap_err();
-        assert!(matches!(err, ValidationError::NonFinite { field: "sigma", .. }));
+        assert!(matches!(
+            err,
+            ValidationError::NonFinite { field: "sigma", .. }
+        ));
     }
 
     #[test]
@@ -263,10 +272,16 @@ mod tests {
         let pi = std::f64::consts::PI;
         for bad in [0.0, -0.0, -1e-9, pi, 4.0] {
             let err = validate_obs(&obs([1.0, 0.0, 0.0], [1.0, 0.0, 0.0], Some(bad))).unwrap_err();
-            assert!(matches!(err, ValidationError::SigmaOutOfRange { .. }), "{bad}: {err:?}");
+            assert!(
+                matches!(err, ValidationError::SigmaOutOfRange { .. }),
+                "{bad}: {err:?}"
+            );
         }
         let err = validate_obs(&obs([1.0, 0.0, 0.0], [1.0, 0.0, 0.0], Some(pi))).unwrap_err();
-        assert_eq!(err.to_string(), format!("sigma {pi} rad is outside 0 < sigma < pi"));
+        assert_eq!(
+            err.to_string(),
+            format!("sigma {pi} rad is outside 0 < sigma < pi")
+        );
         for good in [f64::MIN_POSITIVE, 1e-6, 3.14159] {
             assert!(validate_obs(&obs([1.0, 0.0, 0.0], [1.0, 0.0, 0.0], Some(good))).is_ok());
         }
@@ -279,8 +294,16 @@ mod tests {
         let err = check_sensor_id("").unwrap_err();
         assert_eq!(err.to_string(), "sensor id is empty");
         let err = check_sensor_id(&"x".repeat(65)).unwrap_err();
-        assert_eq!(err, ValidationError::BadSensorId { why: SensorIdFault::TooLong { len: 65 } });
-        assert_eq!(err.to_string(), "sensor id is 65 characters long, at most 64 allowed");
+        assert_eq!(
+            err,
+            ValidationError::BadSensorId {
+                why: SensorIdFault::TooLong { len: 65 }
+            }
+        );
+        assert_eq!(
+            err.to_string(),
+            "sensor id is 65 characters long, at most 64 allowed"
+        );
         let err = check_sensor_id("sun/2").unwrap_err();
         assert_eq!(
             err.to_string(),
@@ -288,35 +311,80 @@ mod tests {
         );
         for bad in ["a b", "é", "tab\t", "星"] {
             assert!(
-                matches!(check_sensor_id(bad), Err(ValidationError::BadSensorId { .. })),
+                matches!(
+                    check_sensor_id(bad),
+                    Err(ValidationError::BadSensorId { .. })
+                ),
                 "{bad:?}"
             );
         }
         let mut o = obs([1.0, 0.0, 0.0], [1.0, 0.0, 0.0], None);
         o.sensor = "bad id".into();
-        assert!(matches!(validate_obs(&o), Err(ValidationError::BadSensorId { .. })));
+        assert!(matches!(
+            validate_obs(&o),
+            Err(ValidationError::BadSensorId { .. })
+        ));
     }
 
     #[test]
     fn rate_checks() {
-        let rate = Rate { sensor: "gyro".into(), seq: 1, t: 2, w: [0.1, -0.2, 1e3], token: None };
+        let rate = Rate {
+            sensor: "gyro".into(),
+            seq: 1,
+            t: 2,
+            w: [0.1, -0.2, 1e3],
+            token: None,
+        };
         assert_eq!(
             validate_rate(&rate).unwrap(),
-            ValidRate { sensor: "gyro".into(), seq: 1, t: 2, w: [0.1, -0.2, 1e3] }
+            ValidRate {
+                sensor: "gyro".into(),
+                seq: 1,
+                t: 2,
+                w: [0.1, -0.2, 1e3]
+            }
         );
         // Zero rate is a valid (static) sample.
-        assert!(validate_rate(&Rate { w: [0.0; 3], ..rate.clone() }).is_ok());
-        let err = validate_rate(&Rate { w: [0.0, f64::INFINITY, 0.0], ..rate.clone() });
-        assert!(matches!(err, Err(ValidationError::NonFinite { field: "w[1]", .. })));
-        let err = validate_rate(&Rate { sensor: String::new(), ..rate });
-        assert!(matches!(err, Err(ValidationError::BadSensorId { why: SensorIdFault::Empty })));
+        assert!(validate_rate(&Rate {
+            w: [0.0; 3],
+            ..rate.clone()
+        })
+        .is_ok());
+        let err = validate_rate(&Rate {
+            w: [0.0, f64::INFINITY, 0.0],
+            ..rate.clone()
+        });
+        assert!(matches!(
+            err,
+            Err(ValidationError::NonFinite { field: "w[1]", .. })
+        ));
+        let err = validate_rate(&Rate {
+            sensor: String::new(),
+            ..rate
+        });
+        assert!(matches!(
+            err,
+            Err(ValidationError::BadSensorId {
+                why: SensorIdFault::Empty
+            })
+        ));
     }
 
     #[test]
     fn truth_is_normalised_with_non_negative_w() {
-        let t = |q| Truth { t: 9, q, token: None };
+        let t = |q| Truth {
+            t: 9,
+            q,
+            token: None,
+        };
         let v = validate_truth(&t([-2.0, 0.0, 0.0, 0.0])).unwrap();
-        assert_eq!(v, ValidTruth { t: 9, q: [1.0, 0.0, 0.0, 0.0] });
+        assert_eq!(
+            v,
+            ValidTruth {
+                t: 9,
+                q: [1.0, 0.0, 0.0, 0.0]
+            }
+        );
         let v = validate_truth(&t([-1.0, 1.0, -1.0, 1.0])).unwrap();
         assert_eq!(v.q, [0.5, -0.5, 0.5, -0.5]);
         // w = -0: the sign bit is cleared too, the rest kept.
@@ -328,6 +396,9 @@ mod tests {
             ValidationError::ZeroVector { field: "q" }
         );
         let err = validate_truth(&t([1.0, 0.0, 0.0, f64::NAN])).unwrap_err();
-        assert!(matches!(err, ValidationError::NonFinite { field: "q[3]", .. }));
+        assert!(matches!(
+            err,
+            ValidationError::NonFinite { field: "q[3]", .. }
+        ));
     }
 }

@@ -37,20 +37,27 @@ fn bad_body() -> impl Strategy<Value = Vec<u8>> {
         // 0xc1 is never used (MessagePack spec).
         junk.clone().prop_map(|j| [vec![0xc1], j].concat()),
         // A fixarray of positive fixints: not a map.
-        proptest::collection::vec(0u8..0x80, 0..15)
-            .prop_map(|items| [vec![0x90 | items.len() as u8], items].concat()),
+        proptest::collection::vec(0u8..0x80, 0..15).prop_map(|items| [
+            vec![0x90 | items.len() as u8],
+            items
+        ]
+        .concat()),
         // A map with an unknown type.
         "[a-z]{1,8}".prop_map(|name| {
             let name = format!("x-{name}");
-            [vec![0x81, 0xa4], b"type".to_vec(), vec![0xa0 | name.len() as u8], name.into_bytes()]
-                .concat()
+            [
+                vec![0x81, 0xa4],
+                b"type".to_vec(),
+                vec![0xa0 | name.len() as u8],
+                name.into_bytes(),
+            ]
+            .concat()
         }),
         // fixmap of 15 pairs followed by fewer than 30 bytes: cut short.
         proptest::collection::vec(any::<u8>(), 0..29).prop_map(|j| [vec![0x8f], j].concat()),
         // A valid status request with trailing bytes.
-        proptest::collection::vec(any::<u8>(), 1..10).prop_map(|j| {
-            [encode_body(&Message::Status(Status::request())), j].concat()
-        }),
+        proptest::collection::vec(any::<u8>(), 1..10)
+            .prop_map(|j| { [encode_body(&Message::Status(Status::request())), j].concat() }),
     ]
 }
 
@@ -71,7 +78,10 @@ fn item() -> impl Strategy<Value = Item> {
 
 /// Cuts `bytes` at the given fractions into consecutive pieces.
 fn cut<'a>(bytes: &'a [u8], cuts: &[f64]) -> Vec<&'a [u8]> {
-    let mut at: Vec<usize> = cuts.iter().map(|f| (f * bytes.len() as f64) as usize).collect();
+    let mut at: Vec<usize> = cuts
+        .iter()
+        .map(|f| (f * bytes.len() as f64) as usize)
+        .collect();
     at.push(0);
     at.push(bytes.len());
     at.sort_unstable();

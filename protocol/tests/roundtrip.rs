@@ -57,7 +57,11 @@ fn type_key_comes_first_and_names_the_variant() {
         assert_eq!(&body[1..1 + head.len()], &head[..], "{name}");
         seen.insert(name);
     }
-    assert_eq!(seen, MESSAGE_TYPES.into_iter().collect(), "samples cover every type");
+    assert_eq!(
+        seen,
+        MESSAGE_TYPES.into_iter().collect(),
+        "samples cover every type"
+    );
 }
 
 #[test]
@@ -68,16 +72,27 @@ fn status_request_and_answer_are_told_apart() {
         r#"{"type":"status","uptime_s":1,"sources":0,"subscribers":0,"accepted":0,"rejected":0,"dropped":0,"epochs":0,"extra":[1]}"#,
     )
     .unwrap();
-    let Message::Status(Status { report: Some(report) }) = answer else { panic!("{answer:?}") };
+    let Message::Status(Status {
+        report: Some(report),
+    }) = answer
+    else {
+        panic!("{answer:?}")
+    };
     assert_eq!(report.uptime_s, 1.0);
     let partial = serde_json::from_str::<Message>(r#"{"type":"status","epochs":3}"#);
-    assert!(partial.unwrap_err().to_string().contains("missing field `uptime_s`"));
+    assert!(partial
+        .unwrap_err()
+        .to_string()
+        .contains("missing field `uptime_s`"));
 }
 
 #[test]
 fn error_codes_have_their_wire_strings() {
     let wire: Vec<&str> = ErrorCode::ALL.iter().map(|c| c.as_str()).collect();
-    assert_eq!(wire, ["version", "auth", "hello", "framing", "busy", "timeout", "shutdown"]);
+    assert_eq!(
+        wire,
+        ["version", "auth", "hello", "framing", "busy", "timeout", "shutdown"]
+    );
     for code in ErrorCode::ALL {
         assert_eq!(ErrorCode::from_wire(code.as_str()), Some(code));
     }

@@ -38,9 +38,18 @@ pub fn samples() -> Vec<Message> {
             token: Some(String::new()),
             verdicts: Some(false),
         }),
-        Message::Welcome(Welcome { version: 1, server: "wahbad 0.1.0".into() }),
-        Message::Error(ErrorMessage::new(ErrorCode::Auth, "jeton refusé: « wrong token »")),
-        Message::Error(ErrorMessage { code: "future-code".into(), message: String::new() }),
+        Message::Welcome(Welcome {
+            version: 1,
+            server: "wahbad 0.1.0".into(),
+        }),
+        Message::Error(ErrorMessage::new(
+            ErrorCode::Auth,
+            "jeton refusé: « wrong token »",
+        )),
+        Message::Error(ErrorMessage {
+            code: "future-code".into(),
+            message: String::new(),
+        }),
         Message::Obs(Obs {
             sensor: "sun".into(),
             seq: 0,
@@ -66,9 +75,21 @@ pub fn samples() -> Vec<Message> {
             w: [0.01, -0.02, 0.0],
             token: None,
         }),
-        Message::Truth(Truth { t: -1, q: [-0.5, 0.5, 0.5, 0.5], token: Some("t".into()) }),
-        Message::Reject(Reject { sensor: None, seq: None, reason: "message is a MessagePack array, not a map".into() }),
-        Message::Reject(Reject { sensor: Some("sun".into()), seq: Some(9), reason: "b has zero length".into() }),
+        Message::Truth(Truth {
+            t: -1,
+            q: [-0.5, 0.5, 0.5, 0.5],
+            token: Some("t".into()),
+        }),
+        Message::Reject(Reject {
+            sensor: None,
+            seq: None,
+            reason: "message is a MessagePack array, not a map".into(),
+        }),
+        Message::Reject(Reject {
+            sensor: Some("sun".into()),
+            seq: Some(9),
+            reason: "b has zero length".into(),
+        }),
         Message::Solution(solution(vec![], None)),
         Message::Solution(solution(vec![], Some(vec![]))),
         Message::Solution(Solution {
@@ -76,12 +97,30 @@ pub fn samples() -> Vec<Message> {
             propagated: None,
             ..solution(
                 vec![
-                    SensorCount { sensor: "sun".into(), n: 2, n_inliers: 2 },
-                    SensorCount { sensor: "mag".into(), n: 2, n_inliers: 1 },
+                    SensorCount {
+                        sensor: "sun".into(),
+                        n: 2,
+                        n_inliers: 2,
+                    },
+                    SensorCount {
+                        sensor: "mag".into(),
+                        n: 2,
+                        n_inliers: 1,
+                    },
                 ],
                 Some(vec![
-                    ObsVerdict { sensor: "sun".into(), seq: 1, residual: 1e-4, inlier: true },
-                    ObsVerdict { sensor: "mag".into(), seq: 2, residual: 0.3, inlier: false },
+                    ObsVerdict {
+                        sensor: "sun".into(),
+                        seq: 1,
+                        residual: 1e-4,
+                        inlier: true,
+                    },
+                    ObsVerdict {
+                        sensor: "mag".into(),
+                        seq: 2,
+                        residual: 0.3,
+                        inlier: false,
+                    },
                 ]),
             )
         }),
