@@ -65,7 +65,7 @@ pub fn samples() -> Vec<Message> {
             t: i64::MIN,
             b: [f64::MAX, -f64::MIN_POSITIVE, -0.0],
             r: [5e-324, f64::INFINITY, -1.0],
-            sigma: Some(3.141592653589793),
+            sigma: Some(std::f64::consts::PI),
             token: Some("s3cret".into()),
         }),
         Message::Rate(Rate {
