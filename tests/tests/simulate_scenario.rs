@@ -247,8 +247,10 @@ fn gyro_integrates_back_to_truth() {
 /// One hour streams with bounded buffering: counts only.
 #[test]
 fn one_hour_streams_with_bounded_memory() {
-    let mut scenario = Scenario::default();
-    scenario.duration_s = 3600.0;
+    let scenario = Scenario {
+        duration_s: 3600.0,
+        ..Scenario::default()
+    };
     let mut simulator = Simulator::new(&scenario).unwrap();
     let mut counts: HashMap<&'static str, usize> = HashMap::new();
     let mut max_buffered = 0;

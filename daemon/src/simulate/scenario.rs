@@ -683,8 +683,10 @@ mod tests {
 
     #[test]
     fn validation_catches_bad_settings() {
-        let mut scenario = Scenario::default();
-        scenario.duration_s = -1.0;
+        let scenario = Scenario {
+            duration_s: -1.0,
+            ..Scenario::default()
+        };
         assert!(matches!(
             scenario.validate(),
             Err(ScenarioError::Duration(_))
@@ -718,8 +720,10 @@ mod tests {
             Err(ScenarioError::Sensor { .. })
         ));
 
-        let mut scenario = Scenario::default();
-        scenario.initial_q = [0.0; 4];
+        let scenario = Scenario {
+            initial_q: [0.0; 4],
+            ..Scenario::default()
+        };
         assert!(matches!(
             scenario.validate(),
             Err(ScenarioError::InitialAttitude)
