@@ -283,3 +283,33 @@ fn one_hour_streams_with_bounded_memory() {
     assert_eq!(simulator.take_fault_log().len(), n_logged);
     assert!(simulator.fault_log().is_empty());
 }
+
+/// The dense variant (`--stars-per-frame 40`): full frames, all in view, all
+/// within 6σ (derived, as above).
+#[test]
+fn dense_star_frames() {
+    let mut scenario = nominal(10.0, 12);
+    scenario.star_cam.stars_per_frame = 40;
+    let boresight = Vector3::from(scenario.star_cam.boresight).normalize();
+    let half_cone = scenario.star_cam.half_cone_deg.to_radians();
+    let mut simulator = Simulator::new(&scenario).unwrap();
+    let mut frames: HashMap<i64, usize> = HashMap::new();
+    while let Some(message) = simulator.next() {
+        if let Message::Obs(obs) = message {
+            if obs.sensor != "star_cam" {
+                continue;
+            }
+            let b = Vector3::from(obs.b);
+            assert!(angle(&b, &boresight) <= half_cone);
+            let predicted = simulator
+                .truth_at(obs.t)
+                .transform_vector(&Vector3::from(obs.r));
+            assert!(angle(&b, &predicted) <= 6.0 * obs.sigma.unwrap());
+            *frames.entry(obs.t).or_default() += 1;
+        }
+    }
+    assert_eq!(frames.len(), 50);
+    let n_full = frames.values().filter(|&&n| n == 40).count();
+    assert!(n_full >= 45, "{n_full} of 50 frames full");
+    assert!(frames.values().all(|n| (30..=40).contains(n)));
+}
