@@ -13,7 +13,7 @@
 //! | truth (table encoder) | — | 10 Hz | exact | first sample at 0 |
 //!
 //! Duration 120 s, seed 1, initial attitude identity, the motion profile of
-//! [`default_profile`](super::motion::default_profile) (one 120 s cycle:
+//! [`motion::default_profile`](super::motion::default_profile) (one 120 s cycle:
 //! rest 10 s; yaw +27° in 10 s; rest 10 s; +18° about an axis tilted 10° in
 //! 10 s; rest 10 s; back in 10 s; rest 5 s; yaw +57° in 20 s; rest 10 s with
 //! the lamp out of the sun sensor's view; yaw −84° in 22 s; rest 3 s; every
