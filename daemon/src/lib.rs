@@ -2,7 +2,9 @@
 //!
 //! - [`solve`]: the Wahba solvers (least squares, TRIAD, LUD, GNC-TLS, consensus, auto).
 //! - [`verdict`]: residuals, inlier flags, covariance and observability.
+//! - [`simulate`]: the bench-scenario simulator (seeded stream of obs, rate, truth).
 
+pub mod simulate;
 pub mod solve;
 pub mod verdict;
 
