@@ -9,6 +9,11 @@ use serde::{Deserialize, Serialize};
 /// Protocol version spoken by this crate.
 pub const PROTOCOL_VERSION: u32 = 1;
 
+/// Variance, rad², written in `cov` for an axis the inliers leave
+/// undetermined (`status` `unobservable`): finite, so that JSON (logs,
+/// reports), which has no infinity, carries the same value.
+pub const UNOBSERVABLE_VARIANCE: f64 = 1e12;
+
 /// One protocol message, tagged by its `type` key.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "type", rename_all = "snake_case")]
