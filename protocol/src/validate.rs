@@ -24,6 +24,20 @@ pub struct ValidObs {
     pub sigma: Option<f64>,
 }
 
+impl ValidObs {
+    /// The 1-σ noise to use: the message's `sigma`, else the sensor's
+    /// configured `default`; neither is [`ValidationError::NoSigma`].
+    ///
+    /// `default` comes from configuration and is not checked here.
+    pub fn sigma_or(&self, default: Option<f64>) -> Result<f64, ValidationError> {
+        self.sigma
+            .or(default)
+            .ok_or_else(|| ValidationError::NoSigma {
+                sensor: self.sensor.clone(),
+            })
+    }
+}
+
 /// A rate sample that passed validation.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ValidRate {
@@ -78,6 +92,12 @@ pub enum ValidationError {
     BadSensorId {
         /// What is wrong with it.
         why: SensorIdFault,
+    },
+    /// The `obs` gives no `sigma` and its sensor has no configured default.
+    #[error("no sigma given and sensor {sensor:?} has no configured default sigma")]
+    NoSigma {
+        /// The sensor id.
+        sensor: String,
     },
 }
 
@@ -285,6 +305,26 @@ mod tests {
         for good in [f64::MIN_POSITIVE, 1e-6, std::f64::consts::PI - 1e-9] {
             assert!(validate_obs(&obs([1.0, 0.0, 0.0], [1.0, 0.0, 0.0], Some(good))).is_ok());
         }
+    }
+
+    #[test]
+    fn sigma_falls_back_to_the_sensor_default_or_is_refused() {
+        let given = validate_obs(&obs([1.0, 0.0, 0.0], [1.0, 0.0, 0.0], Some(2e-3))).unwrap();
+        assert_eq!(given.sigma_or(Some(1e-2)), Ok(2e-3));
+        assert_eq!(given.sigma_or(None), Ok(2e-3));
+        let absent = validate_obs(&obs([1.0, 0.0, 0.0], [1.0, 0.0, 0.0], None)).unwrap();
+        assert_eq!(absent.sigma_or(Some(1e-2)), Ok(1e-2));
+        let err = absent.sigma_or(None).unwrap_err();
+        assert_eq!(
+            err,
+            ValidationError::NoSigma {
+                sensor: "star_tracker-1.a".into()
+            }
+        );
+        assert_eq!(
+            err.to_string(),
+            "no sigma given and sensor \"star_tracker-1.a\" has no configured default sigma"
+        );
     }
 
     #[test]

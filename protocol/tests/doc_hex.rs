@@ -105,6 +105,26 @@ fn reasons_quoted_in_protocol_md_are_the_real_texts() {
         token: None,
     };
     reasons.push(validate_obs(&obs).unwrap_err().to_string());
+    let no_sigma = Obs {
+        b: [0.0, 0.0, 1.0],
+        ..obs
+    };
+    let valid = validate_obs(&no_sigma).unwrap();
+    reasons.push(valid.sigma_or(None).unwrap_err().to_string());
+    let frame = encode_frame(&Message::Obs(Obs {
+        seq: 7,
+        t: 1_000_000_000,
+        sigma: Some(0.001),
+        ..no_sigma
+    }));
+    let mut dec = FrameDecoder::new();
+    dec.push(&frame[..10]);
+    reasons.push(dec.finish().unwrap_err().to_string());
+    // An undecodable body in a good frame is a reject carrying that text.
+    let mut dec = FrameDecoder::new();
+    dec.push(&[0, 0, 0, 1, 0xc1]);
+    let reject = dec.next_message().unwrap_err().to_reject().unwrap();
+    reasons.push(reject.reason);
     for reason in reasons {
         assert!(
             doc.contains(&reason),

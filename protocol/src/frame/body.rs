@@ -43,7 +43,9 @@ pub fn decode_body(body: &[u8]) -> Result<Message, FrameError> {
 
 /// Decodes one datagram (a bare body, no prefix) into a message.
 ///
-/// Same rules as [`decode_body`], plus the [`MAX_FRAME_LEN`] size limit.
+/// Same rules as [`decode_body`], plus the [`MAX_FRAME_LEN`] size limit. A
+/// datagram gets no answer: whatever the error, the daemon drops and counts
+/// it ([`FrameError::error_code`] and [`FrameError::to_reject`] are for streams).
 pub fn decode_datagram(datagram: &[u8]) -> Result<Message, FrameError> {
     if datagram.len() > MAX_FRAME_LEN {
         return Err(FrameError::TooLong {

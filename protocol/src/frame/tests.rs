@@ -487,7 +487,19 @@ fn undecodable_bodies() {
         "{err:?}"
     );
     assert!(err.can_continue());
-    assert_eq!(err.error_code(), Some(ErrorCode::Framing));
+    // Inside a well-formed frame: rejected, the connection stays open.
+    assert_eq!(err.error_code(), None);
+    assert!(err.is_undecodable());
+    let reject = err.to_reject().unwrap();
+    assert!(
+        reject
+            .reason
+            .starts_with("undecodable MessagePack at byte 0: "),
+        "{reject:?}"
+    );
+    assert_eq!((reject.sensor, reject.seq), (None, None));
+    // In the first frame, where hello is expected: not decodable at all.
+    assert_eq!(err.first_frame_code(), ErrorCode::Framing);
     // fixarray 0x92 announces 2 elements, only 1 follows.
     assert!(matches!(
         one(&[0x92, 0x01]),
@@ -507,6 +519,12 @@ fn undecodable_bodies() {
     };
     assert_eq!(ids.sensor.as_deref(), Some("sun"));
     assert_eq!(ids.seq, Some(7));
+    let reject = err.to_reject().unwrap();
+    assert_eq!(
+        (reject.sensor.as_deref(), reject.seq),
+        (Some("sun"), Some(7))
+    );
+    assert_eq!(reject.reason, err.to_string());
     // Invalid UTF-8 in a string (fixstr of 0xff).
     let body = fixmap(&[("type", fixstr("obs")), ("sensor", vec![0xa1, 0xff])]);
     let err = one(&body);
@@ -541,7 +559,13 @@ fn nesting_up_to_the_limit_is_read_and_deeper_is_refused() {
     // Hostile depth: an error, not a stack overflow.
     let err = one(&status_nested(1_000_000));
     assert!(matches!(err, FrameError::TooDeep { .. }));
-    assert_eq!(err.error_code(), Some(ErrorCode::Framing));
+    assert!(err.can_continue());
+    assert_eq!(err.error_code(), None);
+    assert_eq!(
+        err.to_reject().unwrap().reason,
+        "MessagePack nesting deeper than 32 maps/arrays"
+    );
+    assert_eq!(err.first_frame_code(), ErrorCode::Framing);
     assert!(matches!(
         one(&vec![0x91; 1_000_000]),
         FrameError::TooDeep { .. }
@@ -558,7 +582,20 @@ fn trailing_bytes_inside_a_frame() {
     };
     assert_eq!((*len, *trailing), (body.len(), 2));
     assert_eq!(ids.sensor.as_deref(), Some("sun"));
-    assert_eq!(err.error_code(), Some(ErrorCode::Framing));
+    assert_eq!(err.error_code(), None);
+    let reject = err.to_reject().unwrap();
+    assert_eq!(
+        (reject.sensor.as_deref(), reject.seq),
+        (Some("sun"), Some(7))
+    );
+    assert_eq!(
+        reject.reason,
+        format!(
+            "2 trailing bytes after the message in a body of {} bytes",
+            body.len()
+        )
+    );
+    assert_eq!(err.first_frame_code(), ErrorCode::Framing);
     // Two whole messages in one frame.
     let mut two = fixmap(&obs_pairs());
     two.extend(fixmap(&obs_pairs()));
@@ -764,19 +801,110 @@ fn optional_keys_may_be_nil() {
 
 #[test]
 fn error_codes_and_can_continue_per_class() {
-    let body_errors = [
-        one(&[0xc1]),
-        one(&status_nested(40)),
-        one(&[0xc0, 0xc0]),
-        one(&[0xc0]),
-        one(&fixmap(&[("type", fixstr("nope"))])),
-    ];
-    for err in &body_errors {
+    // Undecodable, too deep, trailing bytes: well framed but not MessagePack.
+    let undecodable = [one(&[0xc1]), one(&status_nested(40)), one(&[0xc0, 0xc0])];
+    // Well-formed MessagePack, not a valid message.
+    let invalid = [one(&[0xc0]), one(&fixmap(&[("type", fixstr("nope"))]))];
+    for err in undecodable.iter().chain(&invalid) {
         assert!(err.can_continue(), "{err:?}");
+        assert_eq!(err.error_code(), None, "{err:?}");
+        let reject = err.to_reject().unwrap();
+        assert_eq!(reject.reason, err.to_string());
     }
-    let fatal = [FrameError::ZeroLength, FrameError::TooLong { len: 70000 }];
+    for err in &undecodable {
+        assert!(err.is_undecodable(), "{err:?}");
+        assert_eq!(err.first_frame_code(), ErrorCode::Framing, "{err:?}");
+    }
+    for err in &invalid {
+        assert!(!err.is_undecodable(), "{err:?}");
+        assert_eq!(err.first_frame_code(), ErrorCode::Hello, "{err:?}");
+    }
+    let fatal = [
+        FrameError::ZeroLength,
+        FrameError::TooLong { len: 70000 },
+        FrameError::Truncated {
+            buffered: 3,
+            needed: 4,
+        },
+    ];
     for err in &fatal {
         assert!(!err.can_continue());
         assert_eq!(err.error_code(), Some(ErrorCode::Framing));
+        assert_eq!(err.to_reject(), None);
+        assert_eq!(err.first_frame_code(), ErrorCode::Framing);
     }
+}
+
+#[test]
+fn garbage_body_between_good_frames_is_rejected_and_the_stream_goes_on() {
+    let good = encode_frame(&Message::Obs(sample_obs()));
+    let mut stream = good.clone();
+    stream.extend(framed(&[0xc1, 0xff, 0x00])); // 0xc1: never used (MessagePack spec)
+    stream.extend(framed(&status_nested(MAX_DEPTH)));
+    stream.extend(framed(&[0xc0, 0xc0])); // nil, then a trailing nil
+    stream.extend(good.clone());
+    let mut dec = FrameDecoder::new();
+    dec.push(&stream);
+    assert!(dec.next_message().unwrap().is_some());
+    for _ in 0..3 {
+        let err = dec.next_message().unwrap_err();
+        assert!(err.to_reject().is_some(), "{err:?}");
+    }
+    assert_eq!(
+        dec.next_message().unwrap(),
+        Some(Message::Obs(sample_obs()))
+    );
+    dec.finish().unwrap();
+}
+
+/// A source `hello` whose `version` value is the raw MessagePack `version`.
+fn hello_with_version(version: Vec<u8>) -> Vec<u8> {
+    fixmap(&[
+        ("type", fixstr("hello")),
+        ("version", version),
+        ("role", fixstr("subscriber")),
+    ])
+}
+
+#[test]
+fn hello_version_reads_any_integer_and_clamps_out_of_range() {
+    // shared/protocol.md: `version` is an int. MessagePack spec: positive
+    // fixint, negative fixint 0xff = -1, int 64 0xd3, uint 64 0xcf.
+    let version = |raw: Vec<u8>| match decode_body(&hello_with_version(raw)) {
+        Ok(Message::Hello(h)) => h.version,
+        other => panic!("{other:?}"),
+    };
+    assert_eq!(version(vec![0x01]), 1);
+    assert_eq!(version(vec![0xcd, 0x01, 0x00]), 256);
+    // Unsupported either way, so the daemon answers `version`, not `hello`.
+    assert_eq!(version(vec![0xff]), 0);
+    assert_eq!(
+        version([vec![0xd3], i64::MIN.to_be_bytes().to_vec()].concat()),
+        0
+    );
+    assert_eq!(
+        version([vec![0xcf], u64::MAX.to_be_bytes().to_vec()].concat()),
+        u32::MAX
+    );
+    // Not an integer: not a valid hello.
+    let err = one(&hello_with_version(f64_bytes(1.0)));
+    assert!(
+        matches!(&err, FrameError::WrongType { key, .. } if key == "version"),
+        "{err:?}"
+    );
+    assert_eq!(err.first_frame_code(), ErrorCode::Hello);
+}
+
+#[test]
+fn hello_verdicts_default_to_true() {
+    let Ok(Message::Hello(h)) = decode_body(&hello_with_version(vec![0x01])) else {
+        panic!()
+    };
+    assert_eq!(h.verdicts, None);
+    assert!(h.wants_verdicts());
+    let h = Hello {
+        verdicts: Some(false),
+        ..h
+    };
+    assert!(!h.wants_verdicts());
 }
