@@ -2,7 +2,9 @@
 //!
 //! - [`solve`]: the Wahba solvers (least squares, TRIAD, LUD, GNC-TLS, consensus, auto).
 //! - [`verdict`]: residuals, inlier flags, covariance and observability.
+//! - [`record`]: the recording log written by `serve --record` and read by `replay`.
 
+pub mod record;
 pub mod solve;
 pub mod verdict;
 
