@@ -77,7 +77,9 @@ impl std::fmt::Display for Method {
 
 /// An unknown method name.
 #[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
-#[error("unknown method `{0}`; expected one of svd, q-method, ls, triad, lud, gnc-tls, consensus, auto")]
+#[error(
+    "unknown method `{0}`; expected one of svd, q-method, ls, triad, lud, gnc-tls, consensus, auto"
+)]
 pub struct UnknownMethod(pub String);
 
 impl std::str::FromStr for Method {
@@ -106,7 +108,12 @@ pub struct SolveParams {
 
 impl Default for SolveParams {
     fn default() -> Self {
-        SolveParams { gate_k: 13.8155f64.sqrt(), gnc_mu_factor: 1.4, max_iterations: 100, seed: 0 }
+        SolveParams {
+            gate_k: 13.8155f64.sqrt(),
+            gnc_mu_factor: 1.4,
+            max_iterations: 100,
+            seed: 0,
+        }
     }
 }
 
@@ -153,7 +160,10 @@ pub struct Solver {
 impl Solver {
     /// A solver with the given parameters.
     pub fn new(params: SolveParams) -> Self {
-        Solver { params, weights: Vec::new() }
+        Solver {
+            params,
+            weights: Vec::new(),
+        }
     }
 
     /// The parameters in force.
