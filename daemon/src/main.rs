@@ -23,6 +23,12 @@ enum Command {
     /// Monte-Carlo study: success rate and error over the Cramér–Rao bound
     /// against outlier share, per method and pair count.
     Study(cmd::study::StudyArgs),
+    /// Run the daemon: take sensor observations over TCP, a Unix socket or UDP,
+    /// solve the attitude once per epoch and publish it to subscribers.
+    /// Test and analysis software, not flight-qualified (see the caution below).
+    Serve(cmd::serve::ServeCmdArgs),
+    /// Subscribe to a running daemon and print its feed.
+    Watch(cmd::watch::WatchArgs),
 }
 
 fn main() -> ExitCode {
@@ -41,6 +47,8 @@ fn main() -> ExitCode {
         }
         Command::Solve(args) => cmd::solve::run(args),
         Command::Study(args) => cmd::study::run(args),
+        Command::Serve(args) => cmd::serve::run(args),
+        Command::Watch(args) => cmd::watch::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -1,6 +1,7 @@
 //! The live server behind `wahbad serve`.
 //!
 //! - [`connection`]: a framed stream ([`Connection`]).
+//! - [`display`]: the human feed lines of `watch`.
 //! - `session`: one stream connection: hello, then the source or subscriber loop.
 //! - `udp`: source datagrams.
 //! - [`stats`]: the counters behind `status` and the final summary.
@@ -17,6 +18,7 @@
 //! recording; subscribers get the last outputs, then `error shutdown`.
 
 pub mod connection;
+pub mod display;
 mod session;
 pub mod stats;
 mod udp;

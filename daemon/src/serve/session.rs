@@ -39,7 +39,7 @@ pub async fn serve_stream<S>(
     let mut conn = Connection::new(stream);
     let first = tokio::select! {
         first = timeout(shared.config.limits.hello_timeout, conn.read_frame()) => first,
-        _ = shutdown.wait_for(|stop| *stop) => {
+        _ = stopped(&mut shutdown) => {
             close_with_error(&mut conn, ErrorCode::Shutdown, "the daemon is shutting down".into()).await;
             return;
         }
@@ -168,7 +168,7 @@ async fn source_loop<S: AsyncRead + AsyncWrite + Unpin>(
     loop {
         tokio::select! {
             biased;
-            _ = shutdown.wait_for(|stop| *stop) => {
+            _ = stopped(&mut shutdown) => {
                 close_with_error(conn, ErrorCode::Shutdown, "the daemon is shutting down".into()).await;
                 return;
             }
@@ -403,4 +403,10 @@ pub fn type_name(msg: &Message) -> &'static str {
         Message::Status(_) => "status",
         _ => "an unexpected message",
     }
+}
+
+/// Completes once the server's stop signal is set (or its sender is gone).
+pub(super) async fn stopped(signal: &mut watch::Receiver<bool>) {
+    // The guard `wait_for` returns is not `Send`; drop it at once.
+    let _ = signal.wait_for(|stop| *stop).await.map(|_| ());
 }

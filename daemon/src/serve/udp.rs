@@ -9,7 +9,7 @@ use tokio::net::UdpSocket;
 use tokio::sync::watch;
 use wahbad_protocol::{decode_datagram, Message, MAX_FRAME_LEN};
 
-use super::session::{source_input_from, Answer};
+use super::session::{source_input_from, stopped, Answer};
 use super::stats::bump;
 use super::Shared;
 use crate::core_thread::{CoreSender, Origin, SourceInput};
@@ -26,7 +26,7 @@ pub async fn serve_udp(
     let mut buf = vec![0u8; MAX_FRAME_LEN + 1];
     loop {
         let (len, peer) = tokio::select! {
-            _ = shutdown.wait_for(|stop| *stop) => return,
+            _ = stopped(&mut shutdown) => return,
             got = socket.recv_from(&mut buf) => match got {
                 Ok(got) => got,
                 Err(err) => {
