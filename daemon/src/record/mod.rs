@@ -37,10 +37,12 @@
 //!   header are errors with a clear message.
 
 mod crc;
+mod inputs;
 mod reader;
 mod writer;
 
 pub use crc::{crc32, Crc32};
+pub use inputs::{record_input, InputError};
 pub use reader::{LogReader, ReadWarning};
 pub use writer::LogWriter;
 
