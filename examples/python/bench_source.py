@@ -27,8 +27,8 @@ def rotate(q, r):  # b = A(q) r, A as in the wahbad protocol
             2 * (x * y + w * z) * r[0] + (1 - 2 * (x * x + z * z)) * r[1] + 2 * (y * z - w * x) * r[2],
             2 * (x * z - w * y) * r[0] + 2 * (y * z + w * x) * r[1] + (1 - 2 * (x * x + y * y)) * r[2]]
 
-def noisy(rng, v, sigma):  # small-angle noise, sigma/sqrt(2) per tangent axis
-    return unit([c + rng.gauss(0.0, sigma / math.sqrt(2)) for c in v])
+def noisy(rng, v, sigma):  # small-angle noise, sigma per tangent axis (QUEST measurement model)
+    return unit([c + rng.gauss(0.0, sigma) for c in v])
 
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
