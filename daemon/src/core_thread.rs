@@ -85,7 +85,9 @@ impl CoreSender {
 
     /// Queues `input` if there is room now; hands it back if not.
     pub fn try_send(&self, input: SourceInput) -> Result<(), Box<SourceInput>> {
-        self.tx.try_send(input).map_err(|err| Box::new(err.into_inner()))
+        self.tx
+            .try_send(input)
+            .map_err(|err| Box::new(err.into_inner()))
     }
 }
 

@@ -337,8 +337,8 @@ impl ServeConfig {
         let mut table = file.estimator;
         args.estimator.apply(&mut table);
         let estimator = estimator_config(&table)?;
-        let estimator_toml = toml::to_string(&table)
-            .map_err(|err| SettingsError::Estimator(err.to_string()))?;
+        let estimator_toml =
+            toml::to_string(&table).map_err(|err| SettingsError::Estimator(err.to_string()))?;
 
         let token_file = args.token_file.clone().or(serve.token_file);
         let token = match token_file {
@@ -357,11 +357,15 @@ impl ServeConfig {
             )?,
             hello_timeout: millis(
                 "hello_timeout_ms",
-                args.hello_timeout_ms.or(serve.hello_timeout_ms).unwrap_or(5000),
+                args.hello_timeout_ms
+                    .or(serve.hello_timeout_ms)
+                    .unwrap_or(5000),
             )?,
             subscriber_queue: positive(
                 "subscriber_queue",
-                args.subscriber_queue.or(serve.subscriber_queue).unwrap_or(256),
+                args.subscriber_queue
+                    .or(serve.subscriber_queue)
+                    .unwrap_or(256),
             )?,
             subscriber_timeout: millis(
                 "subscriber_timeout_ms",
@@ -524,6 +528,19 @@ mod tests {
             ..ServeArgs::default()
         };
         assert!(ServeConfig::from_args(&args, None).is_err());
+    }
+
+    #[test]
+    fn the_commented_example_config_is_valid() {
+        let path = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../examples/wahbad.toml");
+        let args = ServeArgs {
+            config: Some(path),
+            ..ServeArgs::default()
+        };
+        let config = ServeConfig::from_args(&args, None).unwrap();
+        assert_eq!(config.listen, DEFAULT_LISTEN.parse().unwrap());
+        assert_eq!(config.estimator.sensors.len(), 3);
+        assert_eq!(config.estimator.sensors["cam"].sigma, Some(1e-4));
     }
 
     #[test]

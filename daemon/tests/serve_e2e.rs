@@ -21,9 +21,21 @@ fn attitude(q: [f64; 4]) -> [[f64; 3]; 3] {
     let n = q.iter().map(|c| c * c).sum::<f64>().sqrt();
     let [w, x, y, z] = q.map(|c| c / n);
     [
-        [1.0 - 2.0 * (y * y + z * z), 2.0 * (x * y - w * z), 2.0 * (x * z + w * y)],
-        [2.0 * (x * y + w * z), 1.0 - 2.0 * (x * x + z * z), 2.0 * (y * z - w * x)],
-        [2.0 * (x * z - w * y), 2.0 * (y * z + w * x), 1.0 - 2.0 * (x * x + y * y)],
+        [
+            1.0 - 2.0 * (y * y + z * z),
+            2.0 * (x * y - w * z),
+            2.0 * (x * z + w * y),
+        ],
+        [
+            2.0 * (x * y + w * z),
+            1.0 - 2.0 * (x * x + z * z),
+            2.0 * (y * z - w * x),
+        ],
+        [
+            2.0 * (x * z - w * y),
+            2.0 * (y * z + w * x),
+            1.0 - 2.0 * (x * x + y * y),
+        ],
     ]
 }
 
@@ -64,12 +76,25 @@ fn python_source_and_subscriber_end_to_end() {
     let q_args: Vec<String> = Q.iter().map(|c| c.to_string()).collect();
     let source = Command::new(python())
         .arg(examples.join("bench_source.py"))
-        .args(["--addr", &addr, "--duration", "9", "--speed", "4", "--outlier-every", "11"])
+        .args([
+            "--addr",
+            &addr,
+            "--duration",
+            "9",
+            "--speed",
+            "4",
+            "--outlier-every",
+            "11",
+        ])
         .args(["--burst", &burst, "--q"])
         .args(&q_args)
         .output()
         .expect("run bench_source.py");
-    assert!(source.status.success(), "{}", String::from_utf8_lossy(&source.stderr));
+    assert!(
+        source.status.success(),
+        "{}",
+        String::from_utf8_lossy(&source.stderr)
+    );
     let planted: serde_json::Value = serde_json::from_slice(&source.stdout).unwrap();
     let planted: HashSet<(String, u64)> = planted["planted"]
         .as_array()
@@ -92,16 +117,32 @@ fn python_source_and_subscriber_end_to_end() {
     let mut verdicts: HashMap<(String, u64), Vec<bool>> = HashMap::new();
     for msg in messages.iter().filter(|m| m["type"] == "solution") {
         for v in msg["verdicts"].as_array().unwrap() {
-            let key = (v["sensor"].as_str().unwrap().to_string(), v["seq"].as_u64().unwrap());
-            verdicts.entry(key).or_default().push(v["inlier"].as_bool().unwrap());
+            let key = (
+                v["sensor"].as_str().unwrap().to_string(),
+                v["seq"].as_u64().unwrap(),
+            );
+            verdicts
+                .entry(key)
+                .or_default()
+                .push(v["inlier"].as_bool().unwrap());
         }
         let t = msg["t"].as_i64().unwrap() as f64 * 1e-9;
         if msg["status"] != "ok" || (t > BURST.0 && t < BURST.1 + 1.0) {
             continue;
         }
         n_ok += 1;
-        let q: Vec<f64> = msg["q"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
-        let cov: Vec<f64> = msg["cov"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+        let q: Vec<f64> = msg["q"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_f64().unwrap())
+            .collect();
+        let cov: Vec<f64> = msg["cov"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_f64().unwrap())
+            .collect();
         let err = error_vector(Q, [q[0], q[1], q[2], q[3]]);
         for axis in 0..3 {
             n_axes += 1;
@@ -114,13 +155,28 @@ fn python_source_and_subscriber_end_to_end() {
     // A Gaussian stays within 3σ 99.73 % of the time (common knowledge of
     // the normal distribution); windows overlap, so allow a little slack.
     let share = n_within as f64 / n_axes as f64;
-    assert!(share >= 0.97, "only {:.1} % of axes within 3σ", share * 100.0);
+    assert!(
+        share >= 0.97,
+        "only {:.1} % of axes within 3σ",
+        share * 100.0
+    );
 
     // Planted outliers: each one seen is flagged, in every window it is in.
-    let seen: Vec<_> = planted.iter().filter(|p| verdicts.contains_key(*p)).collect();
-    assert!(seen.len() * 10 >= planted.len() * 9, "{} of {} planted seen", seen.len(), planted.len());
+    let seen: Vec<_> = planted
+        .iter()
+        .filter(|p| verdicts.contains_key(*p))
+        .collect();
+    assert!(
+        seen.len() * 10 >= planted.len() * 9,
+        "{} of {} planted seen",
+        seen.len(),
+        planted.len()
+    );
     for key in &seen {
-        assert!(verdicts[*key].iter().all(|inlier| !inlier), "planted {key:?} taken as inlier");
+        assert!(
+            verdicts[*key].iter().all(|inlier| !inlier),
+            "planted {key:?} taken as inlier"
+        );
     }
 
     // The burst raises `inlier_fraction` and its end clears it.
@@ -128,13 +184,28 @@ fn python_source_and_subscriber_end_to_end() {
         .iter()
         .filter(|m| m["type"] == "alert" && m["kind"] == "inlier_fraction")
         .collect();
-    let raised = alerts.iter().find(|a| a["state"] == "raised").expect("no raised alert");
-    let cleared = alerts.iter().find(|a| a["state"] == "cleared").expect("no cleared alert");
+    let raised = alerts
+        .iter()
+        .find(|a| a["state"] == "raised")
+        .expect("no raised alert");
+    let cleared = alerts
+        .iter()
+        .find(|a| a["state"] == "cleared")
+        .expect("no cleared alert");
     let t_raised = raised["t"].as_i64().unwrap() as f64 * 1e-9;
     let t_cleared = cleared["t"].as_i64().unwrap() as f64 * 1e-9;
-    assert!(t_raised > BURST.0 && t_raised < BURST.1, "raised at {t_raised}");
-    assert!(t_cleared > BURST.1 && t_cleared < 9.0, "cleared at {t_cleared}");
-    assert!(stderr.contains("alert raised"), "alerts are logged as warnings");
+    assert!(
+        t_raised > BURST.0 && t_raised < BURST.1,
+        "raised at {t_raised}"
+    );
+    assert!(
+        t_cleared > BURST.1 && t_cleared < 9.0,
+        "cleared at {t_cleared}"
+    );
+    assert!(
+        stderr.contains("alert raised"),
+        "alerts are logged as warnings"
+    );
     eprintln!(
         "measured: {n_ok} ok epochs, {:.2} % of axes within 3σ; {} planted outliers flagged; \
          inlier_fraction raised at {t_raised:.2} s, cleared at {t_cleared:.2} s (burst {}–{} s)",

@@ -63,9 +63,15 @@ fn every_error_path_is_answered_and_the_daemon_keeps_serving() {
 
     // A subscriber that stays for the whole test.
     let mut sub = Client::tcp(daemon.tcp);
-    assert!(matches!(sub.hello(Role::Subscriber, token), Message::Welcome(_)));
+    assert!(matches!(
+        sub.hello(Role::Subscriber, token),
+        Message::Welcome(_)
+    ));
     let mut source = Client::tcp(daemon.tcp);
-    assert!(matches!(source.hello(Role::Source, token), Message::Welcome(_)));
+    assert!(matches!(
+        source.hello(Role::Source, token),
+        Message::Welcome(_)
+    ));
     stream(&mut source, 0, 20);
     let first = next_solution(&mut sub);
     assert_eq!(first.t, 0);
@@ -101,7 +107,10 @@ fn every_error_path_is_answered_and_the_daemon_keeps_serving() {
     // Oversize length prefix (after a good hello): error `framing`.
     {
         let mut client = Client::tcp(daemon.tcp);
-        assert!(matches!(client.hello(Role::Source, token), Message::Welcome(_)));
+        assert!(matches!(
+            client.hello(Role::Source, token),
+            Message::Welcome(_)
+        ));
         client.send_raw(&(70_000u32).to_be_bytes());
         client.send_raw(&[0u8; 1000]);
         assert_eq!(error_code(client.recv(WAIT)), "framing");
@@ -159,7 +168,9 @@ fn every_error_path_is_answered_and_the_daemon_keeps_serving() {
     // The source connection is still usable: a status answer comes back.
     source.send(&Message::Status(Status::default()));
     match source.recv(WAIT) {
-        Some(Message::Status(Status { report: Some(report) })) => {
+        Some(Message::Status(Status {
+            report: Some(report),
+        })) => {
             assert!(report.rejected >= 4, "{report:?}");
             assert_eq!(report.sources, 1);
             assert_eq!(report.subscribers, 1);
@@ -178,9 +189,15 @@ fn every_error_path_is_answered_and_the_daemon_keeps_serving() {
 
     // Connection limit of 4: sub + source are 2; two idle ones fill it.
     let mut fill_a = Client::tcp(daemon.tcp);
-    assert!(matches!(fill_a.hello(Role::Subscriber, token), Message::Welcome(_)));
+    assert!(matches!(
+        fill_a.hello(Role::Subscriber, token),
+        Message::Welcome(_)
+    ));
     let mut fill_b = Client::tcp(daemon.tcp);
-    assert!(matches!(fill_b.hello(Role::Subscriber, token), Message::Welcome(_)));
+    assert!(matches!(
+        fill_b.hello(Role::Subscriber, token),
+        Message::Welcome(_)
+    ));
     let mut extra = Client::tcp(daemon.tcp);
     assert_eq!(error_code(extra.recv(WAIT)), "busy");
     drop((fill_a, fill_b));
@@ -194,7 +211,9 @@ fn every_error_path_is_answered_and_the_daemon_keeps_serving() {
     sub.send(&Message::Status(Status::default()));
     let report = loop {
         match sub.recv(WAIT) {
-            Some(Message::Status(Status { report: Some(report) })) => break report,
+            Some(Message::Status(Status {
+                report: Some(report),
+            })) => break report,
             Some(_) => continue,
             None => panic!("no status answer"),
         }
@@ -205,7 +224,11 @@ fn every_error_path_is_answered_and_the_daemon_keeps_serving() {
     let (status, stderr) = daemon.stop();
     assert!(status.success(), "exit {status:?}: {stderr}");
     assert!(!stderr.contains("bench-secret"), "the token was logged");
-    for counted in ["connection limit reached", "no hello in time", "hello refused"] {
+    for counted in [
+        "connection limit reached",
+        "no hello in time",
+        "hello refused",
+    ] {
         assert!(stderr.contains(counted), "no log line {counted:?}");
     }
     let _ = encode_frame(&Message::Status(Status::default()));

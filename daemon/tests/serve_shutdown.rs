@@ -17,7 +17,10 @@ use wahbad_protocol::{encode_frame, Message, Role};
 /// Streams the scene in (about) real time until `stop` or the daemon goes away.
 fn spawn_source(daemon: &Daemon, stop: Arc<AtomicBool>) -> std::thread::JoinHandle<u64> {
     let mut source = Client::tcp(daemon.tcp);
-    assert!(matches!(source.hello(Role::Source, None), Message::Welcome(_)));
+    assert!(matches!(
+        source.hello(Role::Source, None),
+        Message::Welcome(_)
+    ));
     std::thread::spawn(move || {
         let start = Instant::now();
         let mut frame = 0u64;
@@ -50,7 +53,10 @@ fn sigterm_while_streaming_exits_0_with_a_complete_recording_that_replays_bit_fo
         "30",
     ]);
     let mut sub = Client::tcp(daemon.tcp);
-    assert!(matches!(sub.hello(Role::Subscriber, None), Message::Welcome(_)));
+    assert!(matches!(
+        sub.hello(Role::Subscriber, None),
+        Message::Welcome(_)
+    ));
     let subscriber = std::thread::spawn(move || {
         let mut live = Vec::new();
         while let Some(msg) = sub.recv(Duration::from_secs(20)) {
@@ -104,9 +110,19 @@ fn sigterm_while_streaming_exits_0_with_a_complete_recording_that_replays_bit_fo
     assert!(reader.warnings().is_empty(), "{:?}", reader.warnings());
     // Every frame the daemon read was recorded; it stops reading at the signal,
     // so the log holds at most what the source sent.
-    assert!(n_frames > 0 && n_frames <= frames_sent * 4, "{n_frames} vs {frames_sent}");
-    assert_eq!(replayed.len(), live.len(), "replay and live output counts differ");
-    assert!(replayed == live, "replayed outputs differ from the live feed");
+    assert!(
+        n_frames > 0 && n_frames <= frames_sent * 4,
+        "{n_frames} vs {frames_sent}"
+    );
+    assert_eq!(
+        replayed.len(),
+        live.len(),
+        "replay and live output counts differ"
+    );
+    assert!(
+        replayed == live,
+        "replayed outputs differ from the live feed"
+    );
     eprintln!(
         "measured: {} frames recorded, {} live outputs reproduced bit for bit",
         n_frames,
@@ -139,7 +155,10 @@ fn kill_9_leaves_a_recording_readable_to_its_last_whole_record() {
     assert!(n_inputs >= 100, "only {n_inputs} records survived");
     for warning in reader.warnings() {
         assert!(
-            matches!(warning, ReadWarning::NoCleanEnd { .. } | ReadWarning::TornTail { .. }),
+            matches!(
+                warning,
+                ReadWarning::NoCleanEnd { .. } | ReadWarning::TornTail { .. }
+            ),
             "unexpected damage: {warning}"
         );
     }

@@ -27,7 +27,10 @@ fn a_stalled_subscriber_neither_delays_others_nor_stays_connected() {
     ]);
     // The stalled one: hello, then never another read.
     let mut stalled = Client::tcp(daemon.tcp);
-    assert!(matches!(stalled.hello(Role::Subscriber, None), Message::Welcome(_)));
+    assert!(matches!(
+        stalled.hello(Role::Subscriber, None),
+        Message::Welcome(_)
+    ));
     // The reading one asks for no verdicts, so the test keeps up easily.
     let mut good = Client::tcp(daemon.tcp);
     let mut hello = serve_support::hello(Role::Subscriber, None);
@@ -35,14 +38,20 @@ fn a_stalled_subscriber_neither_delays_others_nor_stays_connected() {
         hello.verdicts = Some(false);
     }
     good.send(&hello);
-    assert!(matches!(good.recv(Duration::from_secs(10)), Some(Message::Welcome(_))));
+    assert!(matches!(
+        good.recv(Duration::from_secs(10)),
+        Some(Message::Welcome(_))
+    ));
 
     // Bench time is this test's clock since `start`, so a solution's delay is
     // its arrival time minus the moment its epoch could close (E + L).
     let start = Instant::now();
     let stop = Arc::new(AtomicBool::new(false));
     let mut source = Client::tcp(daemon.tcp);
-    assert!(matches!(source.hello(Role::Source, None), Message::Welcome(_)));
+    assert!(matches!(
+        source.hello(Role::Source, None),
+        Message::Welcome(_)
+    ));
     let source_stop = stop.clone();
     let source_thread = std::thread::spawn(move || {
         let mut frame = 0;
@@ -65,20 +74,31 @@ fn a_stalled_subscriber_neither_delays_others_nor_stays_connected() {
     let mut last_status = Instant::now();
     let deadline = start + Duration::from_secs(60);
     while disconnected_after.is_none() || control_ms.len() < 100 {
-        assert!(Instant::now() < deadline, "the stalled subscriber was never disconnected");
+        assert!(
+            Instant::now() < deadline,
+            "the stalled subscriber was never disconnected"
+        );
         match good.recv(Duration::from_secs(5)) {
             Some(Message::Solution(solution)) => {
                 let due_ns = solution.t + latency_ms * 1_000_000;
                 let delay = start.elapsed().as_nanos() as i64 - due_ns;
-                let phase = if disconnected_after.is_none() { &mut delays_ms } else { &mut control_ms };
+                let phase = if disconnected_after.is_none() {
+                    &mut delays_ms
+                } else {
+                    &mut control_ms
+                };
                 phase.push(delay as f64 * 1e-6);
             }
-            Some(Message::Status(Status { report: Some(report) })) => {
+            Some(Message::Status(Status {
+                report: Some(report),
+            })) => {
                 if report.subscribers == 1 && disconnected_after.is_none() {
                     disconnected_after = Some(start.elapsed());
                 }
             }
-            Some(Message::Lagged(lagged)) => panic!("the reading subscriber lagged by {}", lagged.skipped),
+            Some(Message::Lagged(lagged)) => {
+                panic!("the reading subscriber lagged by {}", lagged.skipped)
+            }
             Some(_) => {}
             None => panic!("the reading subscriber got nothing for 5 s"),
         }
@@ -91,7 +111,10 @@ fn a_stalled_subscriber_neither_delays_others_nor_stays_connected() {
     let (status, stderr) = daemon.stop();
     source_thread.join().unwrap();
     assert!(status.success(), "{stderr}");
-    assert!(stderr.contains("subscriber disconnected: it stopped reading"), "{stderr}");
+    assert!(
+        stderr.contains("subscriber disconnected: it stopped reading"),
+        "{stderr}"
+    );
     let (median, p99, max) = summary(&mut delays_ms);
     let (c_median, c_p99, c_max) = summary(&mut control_ms);
     eprintln!(
@@ -102,10 +125,17 @@ fn a_stalled_subscriber_neither_delays_others_nor_stays_connected() {
         control_ms.len(),
         disconnected_after.unwrap().as_secs_f64()
     );
-    assert!(delays_ms.len() >= 50, "too few solutions while stalled: {}", delays_ms.len());
+    assert!(
+        delays_ms.len() >= 50,
+        "too few solutions while stalled: {}",
+        delays_ms.len()
+    );
     // Generous bound: a stalled peer must not hold the feed back by anything
     // like its 1 s write timeout.
-    assert!(max < 500.0, "max delay {max:.1} ms while a subscriber was stalled");
+    assert!(
+        max < 500.0,
+        "max delay {max:.1} ms while a subscriber was stalled"
+    );
     drop(stalled);
 }
 

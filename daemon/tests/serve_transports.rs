@@ -53,16 +53,25 @@ fn unix_socket_and_udp_each_carry_a_session() {
 
     // Unix socket: subscriber and source both over it.
     let mut sub = Client::new(UnixStream::connect(daemon.unix.as_ref().unwrap()).unwrap());
-    assert!(matches!(sub.hello(Role::Subscriber, Some(TOKEN)), Message::Welcome(_)));
+    assert!(matches!(
+        sub.hello(Role::Subscriber, Some(TOKEN)),
+        Message::Welcome(_)
+    ));
     let mut source = Client::new(UnixStream::connect(&sock).unwrap());
-    assert!(matches!(source.hello(Role::Source, Some(TOKEN)), Message::Welcome(_)));
+    assert!(matches!(
+        source.hello(Role::Source, Some(TOKEN)),
+        Message::Welcome(_)
+    ));
     for frame in 0..20 {
         for msg in scene(frame, frame as i64 * 20_000_000) {
             source.send(&msg);
         }
     }
     let got = solutions_until(&mut sub, 200_000_000);
-    assert!(got.iter().all(|s| angle_to_truth(s) < 1e-6), "unix session solutions off truth");
+    assert!(
+        got.iter().all(|s| angle_to_truth(s) < 1e-6),
+        "unix session solutions off truth"
+    );
     drop(source);
 
     // UDP: datagrams carrying the token are used; those without are dropped.
@@ -78,16 +87,24 @@ fn unix_socket_and_udp_each_carry_a_session() {
             udp.send_to(&encode_body(&msg), daemon_udp).unwrap();
         }
         // No token: must not count.
-        udp.send_to(&encode_body(&scene(frame, frame as i64 * 20_000_000)[0]), daemon_udp)
-            .unwrap();
+        udp.send_to(
+            &encode_body(&scene(frame, frame as i64 * 20_000_000)[0]),
+            daemon_udp,
+        )
+        .unwrap();
         std::thread::sleep(Duration::from_millis(2));
     }
     let got = solutions_until(&mut sub, 600_000_000);
-    assert!(got.iter().all(|s| angle_to_truth(s) < 1e-6), "udp session solutions off truth");
+    assert!(
+        got.iter().all(|s| angle_to_truth(s) < 1e-6),
+        "udp session solutions off truth"
+    );
     sub.send(&Message::Status(Status::default()));
     let report = loop {
         match sub.recv(WAIT) {
-            Some(Message::Status(Status { report: Some(report) })) => break report,
+            Some(Message::Status(Status {
+                report: Some(report),
+            })) => break report,
             Some(_) => {}
             None => panic!("no status"),
         }

@@ -60,7 +60,9 @@ pub fn run(cmd: &ServeCmdArgs) -> Result<(), Failure> {
             .await
             .map_err(|err| Failure::Failed(err.into()))?;
         if let Some(err) = summary.core.record_error {
-            return Err(Failure::Failed(anyhow::anyhow!("the recording is incomplete: {err}")));
+            return Err(Failure::Failed(anyhow::anyhow!(
+                "the recording is incomplete: {err}"
+            )));
         }
         Ok(())
     })

@@ -109,7 +109,11 @@ async fn follow<S: AsyncRead + AsyncWrite + Unpin>(
                         err.message
                     )))
                 }
-                _ => return Err(failed(anyhow::anyhow!("the daemon did not answer with welcome"))),
+                _ => {
+                    return Err(failed(anyhow::anyhow!(
+                        "the daemon did not answer with welcome"
+                    )))
+                }
             }
             if !args.json {
                 let _ = writeln!(out, "{}", legend());
@@ -124,7 +128,11 @@ async fn follow<S: AsyncRead + AsyncWrite + Unpin>(
                 Message::Alert(alert) => writeln!(out, "{}", alert_line(alert)),
                 Message::Lagged(lagged) => writeln!(out, "{}", lagged_line(lagged)),
                 Message::Welcome(welcome) => {
-                    writeln!(out, "# connected to {} (protocol {})", welcome.server, welcome.version)
+                    writeln!(
+                        out,
+                        "# connected to {} (protocol {})",
+                        welcome.server, welcome.version
+                    )
                 }
                 _ => Ok(()),
             }
@@ -138,7 +146,11 @@ async fn follow<S: AsyncRead + AsyncWrite + Unpin>(
                 eprintln!("wahbad watch: the daemon is shutting down");
                 return Ok(());
             }
-            return Err(failed(anyhow::anyhow!("daemon error ({}): {}", err.code, err.message)));
+            return Err(failed(anyhow::anyhow!(
+                "daemon error ({}): {}",
+                err.code,
+                err.message
+            )));
         }
     }
 }

@@ -7,8 +7,8 @@ use std::io::{BufReader, Read};
 use std::path::Path;
 
 use super::{
-    Crc32, LogEnd, LogHeader, Record, RecordError, RecordKind, FORMAT_VERSION, MAGIC,
-    PREAMBLE_LEN, RECORD_HEAD_LEN, RECORD_TAIL_LEN,
+    Crc32, LogEnd, LogHeader, Record, RecordError, RecordKind, FORMAT_VERSION, MAGIC, PREAMBLE_LEN,
+    RECORD_HEAD_LEN, RECORD_TAIL_LEN,
 };
 
 /// Something wrong with a log that the reader worked around.
@@ -126,7 +126,9 @@ impl<R: Read> LogReader<R> {
             return Err(RecordError::NotALog);
         }
         if avail < PREAMBLE_LEN {
-            return Err(RecordError::BadHeader("the file ends inside the preamble".into()));
+            return Err(RecordError::BadHeader(
+                "the file ends inside the preamble".into(),
+            ));
         }
         let version = u16::from_be_bytes([reader.buf[8], reader.buf[9]]);
         if version != FORMAT_VERSION {
@@ -141,10 +143,14 @@ impl<R: Read> LogReader<R> {
                 reader.n_records = 1;
             }
             Parse::Whole(..) => {
-                return Err(RecordError::BadHeader("the first record is not a header".into()))
+                return Err(RecordError::BadHeader(
+                    "the first record is not a header".into(),
+                ))
             }
             Parse::Short => {
-                return Err(RecordError::BadHeader("the header record is cut short".into()))
+                return Err(RecordError::BadHeader(
+                    "the header record is cut short".into(),
+                ))
             }
             Parse::Bad => {
                 return Err(RecordError::BadHeader(

@@ -71,7 +71,9 @@ fn round_trip_keeps_every_byte_and_order() {
 #[test]
 fn record_layout_is_as_documented() {
     let mut writer = LogWriter::new(Vec::new(), &header()).unwrap();
-    writer.write_frame(0x0102_0304_0506_0708, &[0xAA, 0xBB]).unwrap();
+    writer
+        .write_frame(0x0102_0304_0506_0708, &[0xAA, 0xBB])
+        .unwrap();
     let bytes = writer.finish("x", 0).unwrap();
     // Find the frame record: kind 'F', len 2, recv_ns, payload, crc.
     let at = bytes
@@ -102,9 +104,9 @@ fn torn_tail_reads_up_to_last_whole_record() {
         assert_eq!(records.len(), 5, "cut at {cut}");
         assert!(!clean);
         assert!(
-            warnings
-                .iter()
-                .any(|w| matches!(w, ReadWarning::TornTail { offset, .. } if *offset == tick_at as u64)),
+            warnings.iter().any(
+                |w| matches!(w, ReadWarning::TornTail { offset, .. } if *offset == tick_at as u64)
+            ),
             "{warnings:?}"
         );
         assert!(warnings

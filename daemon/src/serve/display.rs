@@ -168,7 +168,10 @@ mod tests {
         // Hamilton product: R(p ⊗ q) = R(p) R(q).
         let q = mul(mul(axis(roll, 1), axis(pitch, 2)), axis(yaw, 3));
         let got = roll_pitch_yaw(q);
-        assert!(close(got[0], roll) && close(got[1], pitch) && close(got[2], yaw), "{got:?}");
+        assert!(
+            close(got[0], roll) && close(got[1], pitch) && close(got[2], yaw),
+            "{got:?}"
+        );
     }
 
     fn solution() -> Solution {
@@ -232,7 +235,10 @@ mod tests {
             message: "mag silent".into(),
         };
         let line = alert_line(&alert);
-        assert!(line.starts_with(">>> ALERT RAISED  stale [mag] at 5.000s"), "{line}");
+        assert!(
+            line.starts_with(">>> ALERT RAISED  stale [mag] at 5.000s"),
+            "{line}"
+        );
         let cleared = Alert {
             state: AlertState::Cleared,
             ..alert

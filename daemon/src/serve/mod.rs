@@ -107,8 +107,8 @@ pub async fn run(
     config: ServeConfig,
     shutdown: impl Future<Output = ()>,
 ) -> Result<ServeSummary, ServeError> {
-    let estimator =
-        Estimator::new(config.estimator.clone()).map_err(|err| ServeError::Config(err.to_string()))?;
+    let estimator = Estimator::new(config.estimator.clone())
+        .map_err(|err| ServeError::Config(err.to_string()))?;
     let recorder = match &config.record {
         Some(path) => {
             let header = LogHeader {
@@ -150,7 +150,12 @@ pub async fn run(
     let mut tasks = JoinSet::new();
     let Listeners { tcp, unix, udp } = listeners;
     if let Some(socket) = udp {
-        tasks.spawn(udp::serve_udp(socket, shared.clone(), core.clone(), stop_rx.clone()));
+        tasks.spawn(udp::serve_udp(
+            socket,
+            shared.clone(),
+            core.clone(),
+            stop_rx.clone(),
+        ));
     }
     let permits = Arc::new(Semaphore::new(shared.config.limits.max_connections));
     let (unix_listener, unix_path) = match unix {

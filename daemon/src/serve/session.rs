@@ -49,7 +49,12 @@ pub async fn serve_stream<S>(
             bump(&shared.counters.hello_timeouts);
             tracing::info!(%peer, "connection closed: no hello in time");
             let ms = shared.config.limits.hello_timeout.as_millis();
-            close_with_error(&mut conn, ErrorCode::Timeout, format!("no hello within {ms} ms")).await;
+            close_with_error(
+                &mut conn,
+                ErrorCode::Timeout,
+                format!("no hello within {ms} ms"),
+            )
+            .await;
             return;
         }
         Ok(Ok(None)) => return,
@@ -126,7 +131,11 @@ fn check_hello(hello: &Hello, shared: &Shared) -> Result<(), (ErrorCode, String)
     }
     if let Some(token) = &shared.config.token {
         if !token.matches(hello.token.as_deref()) {
-            let why = if hello.token.is_some() { "wrong" } else { "missing" };
+            let why = if hello.token.is_some() {
+                "wrong"
+            } else {
+                "missing"
+            };
             return Err((ErrorCode::Auth, format!("{why} token")));
         }
     }
@@ -380,7 +389,10 @@ pub async fn close_with_error<S: AsyncRead + AsyncWrite + Unpin>(
         code: code.as_str().to_string(),
         message,
     });
-    if !matches!(timeout(ERROR_WRITE_TIMEOUT, conn.write_message(&error)).await, Ok(Ok(()))) {
+    if !matches!(
+        timeout(ERROR_WRITE_TIMEOUT, conn.write_message(&error)).await,
+        Ok(Ok(()))
+    ) {
         return;
     }
     let _ = timeout(ERROR_WRITE_TIMEOUT, conn.shutdown()).await;

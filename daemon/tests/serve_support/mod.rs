@@ -56,7 +56,9 @@ impl Daemon {
         let deadline = Instant::now() + Duration::from_secs(20);
         while tcp.is_none() || (expect_udp && udp.is_none()) || (expect_unix && unix.is_none()) {
             let left = deadline.saturating_duration_since(Instant::now());
-            let line = rx.recv_timeout(left).expect("daemon did not announce its listeners");
+            let line = rx
+                .recv_timeout(left)
+                .expect("daemon did not announce its listeners");
             let mut parts = line.split_whitespace();
             match (parts.next(), parts.next(), parts.next()) {
                 (Some("listening"), Some("tcp"), Some(addr)) => tcp = Some(addr.parse().unwrap()),
@@ -87,7 +89,11 @@ impl Daemon {
         let deadline = Instant::now() + limit;
         loop {
             if let Some(status) = self.child.try_wait().unwrap() {
-                let stderr = self.stderr.take().map(|h| h.join().unwrap()).unwrap_or_default();
+                let stderr = self
+                    .stderr
+                    .take()
+                    .map(|h| h.join().unwrap())
+                    .unwrap_or_default();
                 return (status, stderr);
             }
             if Instant::now() > deadline {
@@ -249,16 +255,27 @@ pub fn q_unit(q: [f64; 4]) -> [f64; 4] {
 pub fn rotate(q: [f64; 4], r: [f64; 3]) -> [f64; 3] {
     let [w, x, y, z] = q;
     [
-        (1.0 - 2.0 * (y * y + z * z)) * r[0] + 2.0 * (x * y - w * z) * r[1] + 2.0 * (x * z + w * y) * r[2],
-        2.0 * (x * y + w * z) * r[0] + (1.0 - 2.0 * (x * x + z * z)) * r[1] + 2.0 * (y * z - w * x) * r[2],
-        2.0 * (x * z - w * y) * r[0] + 2.0 * (y * z + w * x) * r[1] + (1.0 - 2.0 * (x * x + y * y)) * r[2],
+        (1.0 - 2.0 * (y * y + z * z)) * r[0]
+            + 2.0 * (x * y - w * z) * r[1]
+            + 2.0 * (x * z + w * y) * r[2],
+        2.0 * (x * y + w * z) * r[0]
+            + (1.0 - 2.0 * (x * x + z * z)) * r[1]
+            + 2.0 * (y * z - w * x) * r[2],
+        2.0 * (x * z - w * y) * r[0]
+            + 2.0 * (y * z + w * x) * r[1]
+            + (1.0 - 2.0 * (x * x + y * y)) * r[2],
     ]
 }
 
 /// Noise-free observations of four well-spread directions at time `t`.
 pub fn scene(frame: u64, t: i64) -> Vec<Message> {
     let q = q_unit(Q_TRUE);
-    let refs = [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0], [0.6, -0.6, 0.5]];
+    let refs = [
+        [1.0, 0.0, 0.0],
+        [0.0, 1.0, 0.0],
+        [0.0, 0.0, 1.0],
+        [0.6, -0.6, 0.5],
+    ];
     refs.iter()
         .enumerate()
         .map(|(idx, r)| {
@@ -323,10 +340,14 @@ pub fn python_msgpack_ready() -> bool {
     if ok {
         return true;
     }
-    let in_ci = std::env::var("CI").map(|v| v == "true" || v == "1").unwrap_or(false);
+    let in_ci = std::env::var("CI")
+        .map(|v| v == "true" || v == "1")
+        .unwrap_or(false);
     if in_ci {
         panic!("python3 with the msgpack package is required under CI=true (pip install -r tests/python/requirements.txt)");
     }
-    eprintln!("skipping: python3 with msgpack unavailable; pip install -r tests/python/requirements.txt");
+    eprintln!(
+        "skipping: python3 with msgpack unavailable; pip install -r tests/python/requirements.txt"
+    );
     false
 }
