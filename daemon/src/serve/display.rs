@@ -35,7 +35,8 @@ pub fn roll_pitch_yaw(q: [f64; 4]) -> [f64; 3] {
     let a02 = 2.0 * (x * z + w * y);
     let a12 = 2.0 * (y * z - w * x);
     let a22 = 1.0 - 2.0 * (x * x + y * y);
-    let pitch = -a02.clamp(-1.0, 1.0).asin();
+    // `+ 0.0` turns the -0.0 of a level attitude into 0.0 for display.
+    let pitch = -a02.clamp(-1.0, 1.0).asin() + 0.0;
     let roll = a12.atan2(a22);
     let yaw = a01.atan2(a00);
     [roll, pitch, yaw]
