@@ -37,7 +37,9 @@ pub struct MessageIds {
 ///
 /// [`FrameError::can_continue`] says whether the next frame can still be read;
 /// [`FrameError::error_code`] says whether the protocol ends the connection with
-/// an `error` (`Some`) or answers a `reject` and goes on (`None`).
+/// an `error` (`Some`) or answers a `reject` and goes on (`None`);
+/// [`FrameError::first_frame_code`] gives the `error` code when the failing
+/// frame was the first of a connection.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 #[non_exhaustive]
 pub enum FrameError {
@@ -147,20 +149,45 @@ impl FrameError {
     }
 
     /// The `error` code the daemon sends before closing, or `None` when the
-    /// message is well framed but invalid and is answered with a `reject`.
+    /// frame was well framed and is answered with a `reject`.
     ///
-    /// `framing` covers bad lengths and bodies that are not one well-formed
-    /// MessagePack value (undecodable, too deep, trailing bytes), as in
-    /// `shared/protocol.md`; everything else is a `reject`.
+    /// Only a bad length prefix (zero, over [`MAX_FRAME_LEN`]) or a stream cut
+    /// inside a frame is fatal (`framing`): after those the next frame cannot
+    /// be found. A body that is not one well-formed MessagePack value
+    /// (undecodable, too deep, trailing bytes) sits in a well-formed frame, so
+    /// it is rejected and the stream goes on. The first frame of a connection
+    /// has its own rule, [`FrameError::first_frame_code`].
     pub fn error_code(&self) -> Option<ErrorCode> {
         match self {
-            FrameError::ZeroLength
-            | FrameError::TooLong { .. }
-            | FrameError::Truncated { .. }
-            | FrameError::Undecodable { .. }
-            | FrameError::TooDeep { .. }
-            | FrameError::TrailingBytes { .. } => Some(ErrorCode::Framing),
+            FrameError::ZeroLength | FrameError::TooLong { .. } | FrameError::Truncated { .. } => {
+                Some(ErrorCode::Framing)
+            }
             _ => None,
+        }
+    }
+
+    /// Whether the body is not one well-formed MessagePack value (undecodable,
+    /// nested deeper than [`MAX_DEPTH`], or followed by trailing bytes).
+    pub fn is_undecodable(&self) -> bool {
+        matches!(
+            self,
+            FrameError::Undecodable { .. }
+                | FrameError::TooDeep { .. }
+                | FrameError::TrailingBytes { .. }
+        )
+    }
+
+    /// The `error` code answering this error in the first frame of a stream
+    /// connection, where `hello` is expected; the daemon then closes.
+    ///
+    /// `framing` when the frame or its body is not decodable at all (a fatal
+    /// framing error or [`FrameError::is_undecodable`]); `hello` when it is
+    /// well-formed MessagePack but not a valid `hello`.
+    pub fn first_frame_code(&self) -> ErrorCode {
+        if self.error_code().is_some() || self.is_undecodable() {
+            ErrorCode::Framing
+        } else {
+            ErrorCode::Hello
         }
     }
 
@@ -357,3 +384,6 @@ impl FrameDecoder {
         Err(FrameError::Truncated { buffered, needed })
     }
 }
+
+#[cfg(test)]
+mod tests;

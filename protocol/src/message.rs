@@ -78,6 +78,12 @@ pub enum Role {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Hello {
     /// Protocol version the client speaks; `1`.
+    ///
+    /// The protocol says `int`: any integer is read, and one outside the `u32`
+    /// range is clamped (below 0 to 0, above to `u32::MAX`), neither of which
+    /// is a supported version, so the daemon answers `error version` as for
+    /// any other unsupported version, not `error hello`.
+    #[serde(deserialize_with = "int_clamped_to_u32")]
     pub version: u32,
     /// What the connection is for.
     pub role: Role,
@@ -90,6 +96,36 @@ pub struct Hello {
     /// Subscribers only: include per-observation verdicts (default `true`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub verdicts: Option<bool>,
+}
+
+impl Hello {
+    /// Whether a subscriber gets per-observation verdicts in its solutions:
+    /// the `verdicts` key, `true` when absent. Meaningless for a source.
+    pub fn wants_verdicts(&self) -> bool {
+        self.verdicts.unwrap_or(true)
+    }
+}
+
+/// Reads any MessagePack integer into a `u32`, clamping out-of-range values.
+fn int_clamped_to_u32<'de, D: serde::Deserializer<'de>>(deserializer: D) -> Result<u32, D::Error> {
+    struct Clamped;
+    impl serde::de::Visitor<'_> for Clamped {
+        type Value = u32;
+        fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+            f.write_str("an integer")
+        }
+        fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<u32, E> {
+            Ok(u32::try_from(v).unwrap_or(u32::MAX))
+        }
+        fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<u32, E> {
+            Ok(if v < 0 {
+                0
+            } else {
+                u32::try_from(v).unwrap_or(u32::MAX)
+            })
+        }
+    }
+    deserializer.deserialize_u32(Clamped)
 }
 
 /// `welcome`: the daemon accepted the `hello`.
@@ -120,7 +156,9 @@ pub enum ErrorCode {
     Auth,
     /// The first frame is not a valid `hello`.
     Hello,
-    /// Bad length prefix, frame too large, undecodable MessagePack.
+    /// Bad length prefix (zero, over 65536) or a stream cut inside a frame;
+    /// in the first frame of a connection also a body that is not decodable
+    /// MessagePack (later, such a body only gets a `reject`).
     Framing,
     /// Connection limit reached.
     Busy,
@@ -192,7 +230,8 @@ pub struct Obs {
     pub b: [f64; 3],
     /// The same direction in the reference frame (any non-zero length).
     pub r: [f64; 3],
-    /// 1-σ angular noise in radians, `0 < sigma < π`; absent: the sensor's default.
+    /// 1-σ angular noise in radians, `0 < sigma < π`; absent: the sensor's
+    /// configured default, and rejected when the sensor has none.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub sigma: Option<f64>,
     /// Shared secret; only meaningful on UDP, where there is no `hello`.

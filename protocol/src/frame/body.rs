@@ -43,7 +43,9 @@ pub fn decode_body(body: &[u8]) -> Result<Message, FrameError> {
 
 /// Decodes one datagram (a bare body, no prefix) into a message.
 ///
-/// Same rules as [`decode_body`], plus the [`MAX_FRAME_LEN`] size limit.
+/// Same rules as [`decode_body`], plus the [`MAX_FRAME_LEN`] size limit. A
+/// datagram gets no answer: whatever the error, the daemon drops and counts
+/// it ([`FrameError::error_code`] and [`FrameError::to_reject`] are for streams).
 pub fn decode_datagram(datagram: &[u8]) -> Result<Message, FrameError> {
     if datagram.len() > MAX_FRAME_LEN {
         return Err(FrameError::TooLong {
@@ -123,7 +125,12 @@ fn serde_error(err: PathError, ids: MessageIds) -> FrameError {
             ids,
         };
     }
-    let detail = inner.to_string();
+    let detail = match &inner {
+        rmp_serde::decode::Error::TypeMismatch(marker) => {
+            format!("unexpected MessagePack {}", marker_family(*marker))
+        }
+        other => other.to_string(),
+    };
     // serde's derive words these two with the key in backticks.
     let key_in = |prefix: &str| {
         let rest = detail.strip_prefix(prefix)?;
@@ -143,6 +150,26 @@ fn serde_error(err: PathError, ids: MessageIds) -> FrameError {
         key: path,
         detail,
         ids,
+    }
+}
+
+/// The MessagePack family of a marker, for error texts (rmp's own `Debug`
+/// names like `FixStr(1)` mean little to a client author).
+fn marker_family(marker: rmp::Marker) -> &'static str {
+    use rmp::Marker as M;
+    match marker {
+        M::Null => "nil",
+        M::True | M::False => "bool",
+        M::FixPos(_) | M::FixNeg(_) | M::U8 | M::U16 | M::U32 | M::U64 => "integer",
+        M::I8 | M::I16 | M::I32 | M::I64 => "integer",
+        M::F32 | M::F64 => "float",
+        M::FixStr(_) | M::Str8 | M::Str16 | M::Str32 => "string",
+        M::Bin8 | M::Bin16 | M::Bin32 => "bin",
+        M::FixArray(_) | M::Array16 | M::Array32 => "array",
+        M::FixMap(_) | M::Map16 | M::Map32 => "map",
+        M::FixExt1 | M::FixExt2 | M::FixExt4 | M::FixExt8 | M::FixExt16 => "ext",
+        M::Ext8 | M::Ext16 | M::Ext32 => "ext",
+        M::Reserved => "reserved marker",
     }
 }
 
