@@ -9,6 +9,4 @@ pub mod message;
 pub mod validate;
 
 pub use message::*;
-pub use validate::{
-    validate_obs, validate_rate, validate_truth, ValidObs, ValidRate, ValidTruth, ValidationError,
-};
+pub use validate::{validate_obs, validate_rate, validate_truth, ValidObs, ValidRate, ValidTruth, ValidationError};
