@@ -9,4 +9,6 @@ pub mod message;
 pub mod validate;
 
 pub use message::*;
-pub use validate::{validate_obs, validate_rate, validate_truth, ValidObs, ValidRate, ValidTruth, ValidationError};
+pub use validate::{
+    validate_obs, validate_rate, validate_truth, ValidObs, ValidRate, ValidTruth, ValidationError,
+};

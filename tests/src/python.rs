@@ -8,7 +8,9 @@ use std::process::{Command, Output};
 
 /// Absolute path of a script in `tests/python/`.
 pub fn script(name: &str) -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("python").join(name)
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+        .join("python")
+        .join(name)
 }
 
 /// The Python interpreter to use: `$PYTHON` or `python3`.
@@ -18,7 +20,9 @@ pub fn interpreter() -> String {
 
 /// True when running under CI, where a missing Python dependency must fail.
 pub fn in_ci() -> bool {
-    std::env::var("CI").map(|v| v == "true" || v == "1").unwrap_or(false)
+    std::env::var("CI")
+        .map(|v| v == "true" || v == "1")
+        .unwrap_or(false)
 }
 
 /// Checks that `python3` can import every module in `modules`.
@@ -55,7 +59,12 @@ pub fn run(script_name: &str, args: &[&str], stdin: &[u8]) -> Output {
         .stderr(Stdio::piped())
         .spawn()
         .expect("start python");
-    child.stdin.take().expect("stdin").write_all(stdin).expect("write stdin");
+    child
+        .stdin
+        .take()
+        .expect("stdin")
+        .write_all(stdin)
+        .expect("write stdin");
     let out = child.wait_with_output().expect("wait python");
     assert!(
         out.status.success(),
