@@ -81,7 +81,7 @@ pub use config::{
 };
 
 use crate::solve::{Pair, SolveError, Solver};
-use crate::verdict::{assess, Observability, UNOBSERVABLE_VARIANCE};
+use crate::verdict::{assess_into, Observability, Verdict, UNOBSERVABLE_VARIANCE};
 use config::Checked;
 use propagate::{Propagator, RateBuffer, RateSample};
 use window::{epoch_at_or_after, first_open_epoch, BufferedObs, ObsBuffer};
@@ -235,6 +235,7 @@ pub struct Estimator {
     pairs: Vec<Pair>,
     counts: Vec<(u32, u32)>,
     present_before: Vec<bool>,
+    verdict: Verdict,
 }
 
 /// Solution `q` for a unit quaternion: `[w, x, y, z]`, `w >= 0`.
@@ -283,6 +284,7 @@ impl Estimator {
             pairs: Vec::with_capacity(config.max_window_obs),
             counts: Vec::with_capacity(config.max_sensors),
             present_before: Vec::with_capacity(config.max_sensors),
+            verdict: Verdict::default(),
             checked,
             config,
         };
@@ -606,17 +608,19 @@ impl Estimator {
         };
         let n = self.pairs.len();
         let configured_method = self.config.method;
-        let (status, q, cov, verdict, method, iterations, directions) = if n < 2 {
-            let verdict = assess(&self.pairs, &fallback_q, gate_k);
-            let cov = Matrix3::identity() * UNOBSERVABLE_VARIANCE;
+        let level = self.config.alerts.inlier_fraction.level;
+        let huge = Matrix3::identity() * UNOBSERVABLE_VARIANCE;
+        // (status, q, cov, method, iterations, independent inlier directions)
+        let (status, q, cov, method, iterations, directions) = if n < 2 {
+            assess_into(&mut self.verdict, &self.pairs, &fallback_q, gate_k);
+            let directions = n as f64;
             (
                 SolutionStatus::Insufficient,
                 fallback_q,
-                cov,
-                verdict,
+                huge,
                 "none",
                 0,
-                n as f64,
+                directions,
             )
         } else {
             match self
@@ -624,73 +628,50 @@ impl Estimator {
                 .solve(&self.pairs, configured_method, warm.as_ref())
             {
                 Ok(outcome) => {
-                    let verdict = assess(&self.pairs, &outcome.q, gate_k);
-                    let method = outcome.method.as_str();
+                    assess_into(&mut self.verdict, &self.pairs, &outcome.q, gate_k);
+                    let verdict = &self.verdict;
+                    let (method, iterations) = (outcome.method.as_str(), outcome.iterations);
                     match verdict.observability {
                         Observability::Full => {
-                            let status = if verdict.inlier_fraction
-                                < self.config.alerts.inlier_fraction.level
-                            {
+                            let status = if verdict.inlier_fraction < level {
                                 SolutionStatus::Degraded
                             } else {
                                 SolutionStatus::Ok
                             };
-                            let cov = verdict.covariance;
                             (
                                 status,
                                 outcome.q,
-                                cov,
-                                verdict,
+                                verdict.covariance,
                                 method,
-                                outcome.iterations,
+                                iterations,
                                 2.0,
                             )
                         }
                         Observability::Unobservable { .. } => {
                             let cov = verdict.covariance;
-                            let it = outcome.iterations;
                             (
                                 SolutionStatus::Unobservable,
                                 fallback_q,
                                 cov,
-                                verdict,
                                 method,
-                                it,
+                                iterations,
                                 1.0,
                             )
                         }
                         Observability::Insufficient => {
-                            let cov = Matrix3::identity() * UNOBSERVABLE_VARIANCE;
-                            let dirs = verdict.n_inliers.min(1) as f64;
-                            let it = outcome.iterations;
-                            (
-                                SolutionStatus::Unobservable,
-                                fallback_q,
-                                cov,
-                                verdict,
-                                method,
-                                it,
-                                dirs,
-                            )
+                            let directions = verdict.n_inliers.min(1) as f64;
+                            let status = SolutionStatus::Unobservable;
+                            (status, fallback_q, huge, method, iterations, directions)
                         }
                     }
                 }
                 Err(err) => {
-                    let verdict = assess(&self.pairs, &fallback_q, gate_k);
-                    let cov = Matrix3::identity() * UNOBSERVABLE_VARIANCE;
+                    assess_into(&mut self.verdict, &self.pairs, &fallback_q, gate_k);
                     let status = match err {
                         SolveError::Insufficient { .. } => SolutionStatus::Insufficient,
                         _ => SolutionStatus::Unobservable,
                     };
-                    (
-                        status,
-                        fallback_q,
-                        cov,
-                        verdict,
-                        configured_method.as_str(),
-                        0,
-                        1.0,
-                    )
+                    (status, fallback_q, huge, configured_method.as_str(), 0, 1.0)
                 }
             }
         };
@@ -705,14 +686,14 @@ impl Estimator {
         let mut verdicts = Vec::with_capacity(n);
         for (pair_idx, obs_idx) in range.enumerate() {
             let obs = self.obs.get(obs_idx);
-            let inlier = verdict.inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
+            let inlier = self.verdict.inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
             if inlier {
                 self.counts[obs.sensor_idx as usize].1 += 1;
             }
             verdicts.push(ObsVerdict {
                 sensor: self.sensors[obs.sensor_idx as usize].name.clone(),
                 seq: obs.seq,
-                residual: verdict.residuals[pair_idx],
+                residual: self.verdict.residuals[pair_idx],
                 inlier,
             });
         }
