@@ -201,8 +201,16 @@ fn without_times(mut rows: Vec<Value>) -> Vec<Value> {
 fn results_do_not_depend_on_the_thread_count() {
     let one = outputs("threads1");
     let two = outputs("threads2");
-    study(&one, "7", &["--threads", "1", "--outlier-mode", "structured"]);
-    study(&two, "7", &["--threads", "2", "--outlier-mode", "structured"]);
+    study(
+        &one,
+        "7",
+        &["--threads", "1", "--outlier-mode", "structured"],
+    );
+    study(
+        &two,
+        "7",
+        &["--threads", "2", "--outlier-mode", "structured"],
+    );
     let (a, b) = (
         without_times(rows(&one.json)),
         without_times(rows(&two.json)),
@@ -210,7 +218,11 @@ fn results_do_not_depend_on_the_thread_count() {
     assert_eq!(a, b);
     // And a different seed gives different trials (the check above can fail).
     let other = outputs("seed8");
-    study(&other, "8", &["--threads", "2", "--outlier-mode", "structured"]);
+    study(
+        &other,
+        "8",
+        &["--threads", "2", "--outlier-mode", "structured"],
+    );
     assert_ne!(a, without_times(rows(&other.json)));
 }
 
