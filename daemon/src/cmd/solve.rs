@@ -27,6 +27,14 @@ use super::{bad_input, Failure};
 
 /// Flags of `wahbad solve`.
 #[derive(Debug, clap::Args)]
+#[command(after_help = "\
+Input: {\"pairs\":[{\"b\":[x,y,z],\"r\":[x,y,z],\"sigma\":rad,\"sensor\":\"id\"},...]}, b ≈ A r; \
+vectors are normalised; sigma is required unless --sigma is given; sensor is optional.
+Output: {\"q\":[w,x,y,z],\"cov\":[9, row-major, rad²],\"status\",\"method\",\"iterations\",\
+\"inlier_fraction\",\"verdicts\":[{\"index\",\"residual\",\"inlier\"}]}.
+Status: ok; degraded (inlier fraction below --inlier-min); unobservable (inliers span one \
+direction; q is the identity when no rotation could be computed); insufficient (fewer than two pairs).
+Exit codes: 0 result printed (whatever the status), 2 bad input or flags, 1 solver failure.")]
 pub struct SolveArgs {
     /// JSON file of pairs, or `-` for standard input.
     #[arg(default_value = "-")]

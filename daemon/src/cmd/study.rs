@@ -21,6 +21,12 @@ pub enum OutlierModeArg {
 
 /// Flags of `wahbad study`.
 #[derive(Debug, clap::Args)]
+#[command(after_help = "\
+Each trial: a random attitude, random reference directions, inliers b = A r deflected by \
+isotropic tangent-plane noise, outliers at random positions. crb = sqrt(trace P) of the true \
+inliers; a trial succeeds when the attitude error is below 5 crb; a failed solve counts as an \
+error of π. The row `ls-inliers` is least squares on the true inliers only: the efficiency \
+yardstick. Figures other than median_time_us are identical for a given seed whatever --threads.")]
 pub struct StudyArgs {
     /// Pair counts per trial, comma-separated.
     #[arg(long = "n", value_delimiter = ',', default_value = "50,200")]

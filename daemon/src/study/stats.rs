@@ -53,7 +53,8 @@ pub fn crb(pairs: &[Pair]) -> Option<f64> {
     let eigen = SymmetricEigen::try_new(info, 1.0e-15, 100)?;
     let max = eigen.eigenvalues.max();
     let min = eigen.eigenvalues.min();
-    if !(max > 0.0) || min < CRB_CONDITION_FLOOR * max {
+    // Eigenvalues are finite here (the matrix was checked), so `<=` also rejects zero.
+    if max <= 0.0 || min < CRB_CONDITION_FLOOR * max {
         return None;
     }
     // trace(J⁻¹) = Σ 1/λ_k for symmetric positive-definite J.

@@ -12,7 +12,7 @@ const PANEL_H: f64 = 250.0;
 const GAP_X: f64 = 90.0;
 const GAP_Y: f64 = 80.0;
 const LEFT: f64 = 70.0;
-const TOP: f64 = 110.0;
+const TOP: f64 = 124.0;
 const BOTTOM: f64 = 60.0;
 const RIGHT: f64 = 30.0;
 
@@ -139,7 +139,7 @@ impl Panel {
                 r#"<line x1="{x:.1}" y1="{y0}" x2="{x:.1}" y2="{}" stroke="{GRID}" stroke-width="1"/>"#,
                 y0 + PANEL_H
             );
-            if tick % 2 == 0 || tick == 9 {
+            if tick % 2 == 0 {
                 let _ = writeln!(
                     svg,
                     r#"<text x="{x:.1}" y="{}" font-size="11" text-anchor="middle">{}%</text>"#,
