@@ -149,13 +149,14 @@ async fn first_frame_error<S: AsyncRead + AsyncWrite + Unpin>(
     peer: &str,
     err: FrameError,
 ) {
-    let code = if err.error_code().is_some() {
+    // A bad length or an undecodable body is `framing`; a readable message
+    // that is not a valid hello is `hello` (the protocol crate's rule).
+    let code = err.first_frame_code();
+    if code == ErrorCode::Framing {
         bump(&shared.counters.framing_errors);
-        ErrorCode::Framing
     } else {
         bump(&shared.counters.hello_errors);
-        ErrorCode::Hello
-    };
+    }
     let message = if code == ErrorCode::Hello {
         format!("the first frame is not a valid hello: {err}")
     } else {
