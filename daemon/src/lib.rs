@@ -2,11 +2,28 @@
 //!
 //! - [`solve`]: the Wahba solvers (least squares, TRIAD, LUD, GNC-TLS, consensus, auto).
 //! - [`verdict`]: residuals, inlier flags, covariance and observability.
+//! - [`estimator`]: the streaming estimator (window, rate propagation, alerts).
+//! - [`study`]: Monte-Carlo studies of the solvers against the Cramér–Rao bound.
+//! - [`record`]: the recording log written by `serve --record` and read by `replay`.
+//! - [`settings`]: `serve` flags, the TOML config file, validated [`ServeConfig`].
+//! - [`core_thread`]: the estimator on its own thread, with the recorder.
+//! - [`serve`]: the live server (TCP, Unix socket, UDP; sources and subscribers).
 //! - [`simulate`]: the bench-scenario simulator (seeded stream of obs, rate, truth).
 
+pub mod core_thread;
+pub mod estimator;
+pub mod record;
+pub mod serve;
+pub mod settings;
 pub mod simulate;
 pub mod solve;
+pub mod study;
 pub mod verdict;
 
+pub use estimator::{
+    ConfigError, Estimator, EstimatorConfig, IngestError, Input, Output, SensorConfig, SensorKind,
+    Stats,
+};
+pub use settings::{ServeArgs, ServeConfig};
 pub use solve::{Method, Outcome, Pair, SolveError, SolveParams, Solver};
 pub use verdict::{assess, Observability, Verdict};

@@ -1,4 +1,6 @@
-//! The `wahbad` command line: parses flags and hands over to the library.
+//! The `wahbad` command line: parses flags and hands over to the command modules.
+
+mod cmd;
 
 use std::process::ExitCode;
 
@@ -16,14 +18,40 @@ struct Cli {
 enum Command {
     /// Print the version of the wire protocol this build speaks.
     ProtocolVersion,
+    /// Solve one set of vector pairs given as JSON; the result as JSON on stdout.
+    Solve(cmd::solve::SolveArgs),
+    /// Monte-Carlo study: success rate and error over the Cramér–Rao bound
+    /// against outlier share, per method and pair count.
+    Study(cmd::study::StudyArgs),
+    /// Run the daemon: take sensor observations over TCP, a Unix socket or UDP,
+    /// solve the attitude once per epoch and publish it to subscribers.
+    /// Test and analysis software, not flight-qualified (see the caution below).
+    Serve(cmd::serve::ServeCmdArgs),
+    /// Subscribe to a running daemon and print its feed.
+    Watch(cmd::watch::WatchArgs),
 }
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
-    match cli.command {
+    tracing_subscriber::fmt()
+        .with_env_filter(
+            tracing_subscriber::EnvFilter::try_from_default_env()
+                .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("warn")),
+        )
+        .with_writer(std::io::stderr)
+        .init();
+    let result = match &cli.command {
         Command::ProtocolVersion => {
             println!("{}", wahbad_protocol::PROTOCOL_VERSION);
-            ExitCode::SUCCESS
+            Ok(())
         }
+        Command::Solve(args) => cmd::solve::run(args),
+        Command::Study(args) => cmd::study::run(args),
+        Command::Serve(args) => cmd::serve::run(args),
+        Command::Watch(args) => cmd::watch::run(args),
+    };
+    match result {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(failure) => failure.report(),
     }
 }

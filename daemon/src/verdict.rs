@@ -1,13 +1,33 @@
 //! Verdicts: residuals, inlier flags, covariance and observability of a solved rotation.
 //!
-//! (Skeleton: filled in by the solver work.)
+//! - Residual of pair `i`: the angle between `b_i` and `A r_i`,
+//!   `θ_i = atan2(|b_i × A r_i|, b_i · A r_i)` (accurate at all angles).
+//! - Inlier: `θ_i ≤ k σ_i` (χ² gate, 2 dof; `k = √13.8155` at 99.9 %).
+//! - Covariance (QUEST measurement model, Shuster & Oh 1981):
+//!   `P = F⁻¹`, `F = Σ_inliers σ_i⁻² (I − b_i b_iᵀ)`, body frame, for the
+//!   error `A_true ≈ (I − [δθ×]) A_est`.
+//! - Observability, by the eigenvalues `λ₁ ≤ λ₂ ≤ λ₃` of `F`: `Unobservable`
+//!   about the eigenvector of `λ₁` when `λ₁ ≤ OBSERVABILITY_RATIO · λ₃`
+//!   (inliers spanning fewer than two independent directions give `λ₁ = 0`);
+//!   that axis then carries [`UNOBSERVABLE_VARIANCE`] in `P`, the other two
+//!   their `1/λ`. Fewer than two pairs or two inliers: `Insufficient`, with
+//!   `P = UNOBSERVABLE_VARIANCE · I`. Never NaN or infinite.
+//! - A pair with a zero or non-finite vector or a bad σ (refused by the
+//!   solvers, normally rejected earlier by protocol validation) gets residual
+//!   `π` and is an outlier.
 
 use nalgebra::{Matrix3, UnitQuaternion, Vector3};
 
+use crate::solve::eigen3::symmetric_eigen3;
 use crate::solve::Pair;
 
 /// Variance reported on an unobservable axis, rad² (finite so JSON can carry it).
 pub const UNOBSERVABLE_VARIANCE: f64 = 1.0e12;
+
+/// Near-singularity test of the information matrix: smallest over largest
+/// eigenvalue at or below this is unobservable (the same ratio as the
+/// solvers' [`crate::solve::rotation::DEGENERACY_RATIO`]).
+pub const OBSERVABILITY_RATIO: f64 = crate::solve::rotation::DEGENERACY_RATIO;
 
 /// Whether the inliers determine all three axes.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -16,7 +36,7 @@ pub enum Observability {
     Full,
     /// Rotation about `axis` (body frame, unit) undetermined.
     Unobservable {
-        /// The undetermined axis.
+        /// The undetermined axis (sign fixed: its largest-magnitude component is positive).
         axis: Vector3<f64>,
     },
     /// Fewer than two pairs (or inliers).
@@ -40,8 +60,177 @@ pub struct Verdict {
     pub observability: Observability,
 }
 
+impl Default for Verdict {
+    /// The verdict on no pairs: `Insufficient`, empty vectors (a buffer for [`assess_into`]).
+    fn default() -> Self {
+        Verdict {
+            residuals: Vec::new(),
+            inliers: Vec::new(),
+            n_inliers: 0,
+            inlier_fraction: 0.0,
+            covariance: Matrix3::identity() * UNOBSERVABLE_VARIANCE,
+            observability: Observability::Insufficient,
+        }
+    }
+}
+
 /// Judges `q` against `pairs` with gate multiplier `gate_k`.
 pub fn assess(pairs: &[Pair], q: &UnitQuaternion<f64>, gate_k: f64) -> Verdict {
-    let _ = (pairs, q, gate_k);
-    todo!("solver work")
+    let mut v = Verdict::default();
+    assess_into(&mut v, pairs, q, gate_k);
+    v
+}
+
+/// [`assess`] into an existing verdict, reusing its vectors (no allocation
+/// once they have grown to the window size).
+pub fn assess_into(v: &mut Verdict, pairs: &[Pair], q: &UnitQuaternion<f64>, gate_k: f64) {
+    let a = q.to_rotation_matrix().into_inner();
+    v.residuals.clear();
+    v.inliers.clear();
+    let mut info = Matrix3::<f64>::zeros();
+    let mut n_inliers = 0;
+    for p in pairs {
+        let (nb, nr) = (p.b.norm(), p.r.norm());
+        let valid = p.sigma.is_finite()
+            && p.sigma > 0.0
+            && nb.is_finite()
+            && nr.is_finite()
+            && nb > 1e-150
+            && nr > 1e-150;
+        if !valid {
+            v.residuals.push(std::f64::consts::PI);
+            v.inliers.push(false);
+            continue;
+        }
+        let b = p.b / nb;
+        let ar = a * (p.r / nr);
+        let theta = b.cross(&ar).norm().atan2(b.dot(&ar));
+        let inlier = theta <= gate_k * p.sigma;
+        v.residuals.push(theta);
+        v.inliers.push(inlier);
+        if inlier {
+            n_inliers += 1;
+            let w = 1.0 / (p.sigma * p.sigma);
+            info += (Matrix3::identity() - b * b.transpose()) * w;
+        }
+    }
+    v.n_inliers = n_inliers;
+    v.inlier_fraction = if pairs.is_empty() {
+        0.0
+    } else {
+        n_inliers as f64 / pairs.len() as f64
+    };
+    let (covariance, observability) = covariance_of(&info, n_inliers);
+    v.covariance = covariance;
+    v.observability = observability;
+}
+
+/// `F⁻¹` with the observability test of the module doc.
+fn covariance_of(info: &Matrix3<f64>, n_inliers: usize) -> (Matrix3<f64>, Observability) {
+    let insufficient = (
+        Matrix3::identity() * UNOBSERVABLE_VARIANCE,
+        Observability::Insufficient,
+    );
+    if n_inliers < 2 {
+        return insufficient;
+    }
+    let Some(eig) = symmetric_eigen3(info) else {
+        return insufficient;
+    };
+    let (l, e) = (eig.values, eig.vectors);
+    if !(l[2] > 0.0) {
+        return insufficient;
+    }
+    let unobservable = l[0] <= OBSERVABILITY_RATIO * l[2];
+    let mut cov = Matrix3::zeros();
+    for k in 0..3 {
+        let var = if k == 0 && unobservable {
+            UNOBSERVABLE_VARIANCE
+        } else {
+            1.0 / l[k]
+        };
+        let col = e.column(k);
+        cov += col * col.transpose() * var;
+    }
+    if !unobservable {
+        return (cov, Observability::Full);
+    }
+    let mut axis: Vector3<f64> = e.column(0).into_owned();
+    let imax = axis.iamax();
+    if axis[imax] < 0.0 {
+        axis = -axis;
+    }
+    (cov, Observability::Unobservable { axis })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn pair(b: [f64; 3], r: [f64; 3], sigma: f64) -> Pair {
+        Pair {
+            b: Vector3::from(b).normalize(),
+            r: Vector3::from(r).normalize(),
+            sigma,
+        }
+    }
+
+    #[test]
+    fn two_orthogonal_pairs_are_fully_observable() {
+        let pairs = [
+            pair([1., 0., 0.], [1., 0., 0.], 0.01),
+            pair([0., 1., 0.], [0., 1., 0.], 0.02),
+        ];
+        let v = assess(&pairs, &UnitQuaternion::identity(), 3.0);
+        assert_eq!(v.n_inliers, 2);
+        assert_eq!(v.observability, Observability::Full);
+        // F = 1e4 diag(0,1,1) + 2.5e3 diag(1,0,1) → P = diag(1/2.5e3, 1/1e4, 1/1.25e4).
+        let want = Matrix3::from_diagonal(&Vector3::new(4e-4, 1e-4, 8e-5));
+        assert!((v.covariance - want).abs().max() < 1e-16);
+    }
+
+    #[test]
+    fn parallel_inliers_are_unobservable_about_their_direction() {
+        let pairs = [
+            pair([0., 0., 1.], [0., 0., 1.], 0.01),
+            pair([0., 0., 1.], [0., 0., 1.], 0.01),
+        ];
+        let v = assess(&pairs, &UnitQuaternion::identity(), 3.0);
+        match v.observability {
+            Observability::Unobservable { axis } => assert!((axis - Vector3::z()).norm() < 1e-12),
+            other => panic!("expected unobservable, got {other:?}"),
+        }
+        assert_eq!(v.covariance[(2, 2)], UNOBSERVABLE_VARIANCE);
+        assert!(v.covariance.iter().all(|x| x.is_finite()));
+    }
+
+    #[test]
+    fn one_pair_is_insufficient() {
+        let pairs = [pair([0., 0., 1.], [0., 0., 1.], 0.01)];
+        let v = assess(&pairs, &UnitQuaternion::identity(), 3.0);
+        assert_eq!(v.observability, Observability::Insufficient);
+        assert_eq!(v.inlier_fraction, 1.0);
+    }
+
+    #[test]
+    fn residual_is_the_angle_and_gates_outliers() {
+        let pairs = [
+            pair([1., 0., 0.], [1., 0., 0.], 0.01),
+            pair([0., 1., 0.], [0., 1., 0.], 0.01),
+            pair([0., 0., 1.], [1., 0., 0.], 0.01),
+        ];
+        let v = assess(&pairs, &UnitQuaternion::identity(), 3.0);
+        assert!((v.residuals[2] - std::f64::consts::FRAC_PI_2).abs() < 1e-15);
+        assert_eq!(v.inliers, vec![true, true, false]);
+        assert!((v.inlier_fraction - 2.0 / 3.0).abs() < 1e-15);
+    }
+
+    #[test]
+    fn invalid_pairs_are_outliers_not_nan() {
+        let mut bad = pair([1., 0., 0.], [1., 0., 0.], 0.01);
+        bad.b = Vector3::new(f64::NAN, 0.0, 0.0);
+        let v = assess(&[bad], &UnitQuaternion::identity(), 3.0);
+        assert_eq!(v.residuals, vec![std::f64::consts::PI]);
+        assert_eq!(v.inliers, vec![false]);
+    }
 }

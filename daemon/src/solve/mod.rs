@@ -5,9 +5,35 @@
 //! components, `b_i ≈ A r_i`; quaternions are `[w, x, y, z]`, Hamilton,
 //! `w >= 0`.
 //!
-//! (Skeleton: the methods are filled in by the solver work.)
+//! Layout:
+//! - [`rotation`]: checked nearest rotation (SVD), shortest arc, quaternion and angle helpers;
+//! - [`eigen3`]: bounded symmetric 3×3 eigen-decomposition (verdict covariance);
+//! - [`svd`], [`qmethod`]: weighted least squares (Markley's SVD method, Davenport's q-method);
+//! - [`triad`]: the two-vector closed form;
+//! - `lud`, `gnc`, `consensus`, `auto`: the robust methods, each ending with
+//!   `refit`, a weighted least-squares refit on the χ²-gate inliers.
+//!
+//! Each method's convergence rule is in its module doc. Degenerate geometry:
+//! fewer than two pairs is [`SolveError::Insufficient`]; pairs that fix the
+//! rotation only up to a turn about one axis (all parallel) give a valid
+//! rotation (the shortest arc between the dominant directions) whose
+//! [`crate::verdict`] reports [`crate::verdict::Observability::Unobservable`];
+//! pairs that cancel (zero attitude profile matrix) and TRIAD on parallel
+//! vectors are [`SolveError::Degenerate`]. Invalid numbers are
+//! [`SolveError::InvalidPair`], never a NaN result.
 
-use nalgebra::{UnitQuaternion, Vector3};
+mod auto;
+mod consensus;
+pub mod eigen3;
+mod gnc;
+mod lud;
+pub mod qmethod;
+mod refit;
+pub mod rotation;
+pub mod svd;
+pub mod triad;
+
+use nalgebra::{Matrix3, UnitQuaternion, Vector3};
 
 /// One weighted vector pair: `b ≈ A r`, both unit length, `sigma` in radians.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -77,7 +103,9 @@ impl std::fmt::Display for Method {
 
 /// An unknown method name.
 #[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
-#[error("unknown method `{0}`; expected one of svd, q-method, ls, triad, lud, gnc-tls, consensus, auto")]
+#[error(
+    "unknown method `{0}`; expected one of svd, q-method, ls, triad, lud, gnc-tls, consensus, auto"
+)]
 pub struct UnknownMethod(pub String);
 
 impl std::str::FromStr for Method {
@@ -94,19 +122,59 @@ impl std::str::FromStr for Method {
 #[derive(Debug, Clone, PartialEq)]
 pub struct SolveParams {
     /// χ² gate multiplier `k`: a pair is an inlier when `θ_i <= k σ_i`.
-    /// Default `√13.8155` (2 dof, 99.9 %).
+    /// Default `√13.8155` (2 dof, 99.9 %; [`CHI2_2DOF_999`]).
     pub gate_k: f64,
-    /// GNC-TLS: factor by which μ grows each outer step. Default 1.4.
+    /// GNC-TLS: factor by which μ grows each outer step, `> 1`. Default 1.4.
     pub gnc_mu_factor: f64,
-    /// Iteration cap of every iterative method. Default 100.
+    /// Iteration cap of every iterative method (LUD reweightings, GNC
+    /// μ steps). Default 100.
     pub max_iterations: u32,
     /// Seed of the consensus sampler (deterministic results).
     pub seed: u64,
+    /// `auto`: a result is accepted without escalating when it explains at
+    /// least this share of the pairs (and at least two). Default 0.5.
+    pub auto_min_inlier_share: f64,
+    /// `consensus`: cap on the hypotheses drawn in sampled mode. Default 100 000.
+    pub consensus_max_draws: u32,
 }
+
+/// The 2-degree-of-freedom χ² quantile at 99.9 %, `−2 ln 0.001 = 13.8155…`
+/// (the χ² CDF with 2 dof is `1 − e^{−x/2}`).
+pub const CHI2_2DOF_999: f64 = 13.815_510_557_964_274;
 
 impl Default for SolveParams {
     fn default() -> Self {
-        SolveParams { gate_k: 13.8155f64.sqrt(), gnc_mu_factor: 1.4, max_iterations: 100, seed: 0 }
+        SolveParams {
+            gate_k: CHI2_2DOF_999.sqrt(),
+            gnc_mu_factor: 1.4,
+            max_iterations: 100,
+            seed: 0,
+            auto_min_inlier_share: 0.5,
+            consensus_max_draws: 100_000,
+        }
+    }
+}
+
+impl SolveParams {
+    /// Checks every field's range.
+    pub fn validate(&self) -> Result<(), SolveError> {
+        let bad = |what: &str| Err(SolveError::InvalidParams(what.to_string()));
+        if !(self.gate_k.is_finite() && self.gate_k > 0.0) {
+            return bad("gate_k must be finite and > 0");
+        }
+        if !(self.gnc_mu_factor.is_finite() && self.gnc_mu_factor > 1.0) {
+            return bad("gnc_mu_factor must be finite and > 1");
+        }
+        if self.max_iterations == 0 {
+            return bad("max_iterations must be >= 1");
+        }
+        if !(0.0..=1.0).contains(&self.auto_min_inlier_share) {
+            return bad("auto_min_inlier_share must be within [0, 1]");
+        }
+        if self.consensus_max_draws == 0 {
+            return bad("consensus_max_draws must be >= 1");
+        }
+        Ok(())
     }
 }
 
@@ -141,6 +209,95 @@ pub enum SolveError {
     /// A decomposition returned a non-finite or non-orthonormal result.
     #[error("numerical failure: {0}")]
     Numerical(String),
+    /// A pair holds a non-finite or zero vector, or a σ that is not finite and `> 0`.
+    #[error("pair {index}: {reason}")]
+    InvalidPair {
+        /// Index of the pair in the input.
+        index: usize,
+        /// What is wrong with it.
+        reason: &'static str,
+    },
+    /// A [`SolveParams`] field is out of range.
+    #[error("invalid solver parameters: {0}")]
+    InvalidParams(String),
+}
+
+/// Per-solve arrays, kept between solves so steady-state solves do not allocate.
+#[derive(Debug, Clone, Default)]
+pub(crate) struct Workspace {
+    /// The input pairs with unit vectors.
+    pub pairs: Vec<Pair>,
+    /// `σ_i⁻²`.
+    pub inv_var: Vec<f64>,
+    /// Squared chord of the gate angle, `(2 sin(min(k σ_i, π)/2))²`.
+    pub gate_chord2: Vec<f64>,
+    /// Iteration weights of the inner least-squares steps.
+    pub work_w: Vec<f64>,
+    /// Per-pair scratch values (residuals).
+    pub resid: Vec<f64>,
+    /// Inlier flags of the current refit set.
+    pub inl: Vec<bool>,
+}
+
+impl Workspace {
+    /// Validates and normalises `pairs` into the workspace.
+    fn load(&mut self, pairs: &[Pair], gate_k: f64) -> Result<(), SolveError> {
+        let n = pairs.len();
+        self.pairs.clear();
+        self.inv_var.clear();
+        self.gate_chord2.clear();
+        for (index, p) in pairs.iter().enumerate() {
+            let unit = |v: &Vector3<f64>, which: &'static str| {
+                let norm = v.norm();
+                if !v.iter().all(|x| x.is_finite()) || !norm.is_finite() {
+                    return Err(SolveError::InvalidPair {
+                        index,
+                        reason: which,
+                    });
+                }
+                if norm < 1e-150 {
+                    return Err(SolveError::InvalidPair {
+                        index,
+                        reason: "zero vector",
+                    });
+                }
+                Ok(v / norm)
+            };
+            let b = unit(&p.b, "b is not finite")?;
+            let r = unit(&p.r, "r is not finite")?;
+            if !(p.sigma.is_finite() && p.sigma > 0.0) {
+                return Err(SolveError::InvalidPair {
+                    index,
+                    reason: "sigma must be finite and > 0",
+                });
+            }
+            self.pairs.push(Pair {
+                b,
+                r,
+                sigma: p.sigma,
+            });
+            self.inv_var.push(1.0 / (p.sigma * p.sigma));
+            let gate = (gate_k * p.sigma).min(std::f64::consts::PI);
+            self.gate_chord2.push((2.0 * (0.5 * gate).sin()).powi(2));
+        }
+        self.work_w.resize(n, 0.0);
+        self.resid.resize(n, 0.0);
+        self.inl.resize(n, false);
+        Ok(())
+    }
+}
+
+/// A rotation estimate inside the solvers, before conversion to a quaternion.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) struct Estimate {
+    /// Attitude matrix, `b ≈ A r`.
+    pub a: Matrix3<f64>,
+    /// Iterations used.
+    pub iterations: u32,
+    /// Whether the convergence rule was met.
+    pub converged: bool,
+    /// The method that produced it.
+    pub method: Method,
 }
 
 /// Reusable solver state: holds scratch buffers so steady-state solves do not allocate.
@@ -148,12 +305,17 @@ pub enum SolveError {
 pub struct Solver {
     params: SolveParams,
     weights: Vec<f64>,
+    ws: Workspace,
 }
 
 impl Solver {
     /// A solver with the given parameters.
     pub fn new(params: SolveParams) -> Self {
-        Solver { params, weights: Vec::new() }
+        Solver {
+            params,
+            weights: Vec::new(),
+            ws: Workspace::default(),
+        }
     }
 
     /// The parameters in force.
@@ -161,19 +323,177 @@ impl Solver {
         &self.params
     }
 
-    /// Per-pair weights of the last solve (robust methods: 0 for rejected pairs).
+    /// Per-pair weights of the last solve: `σ_i⁻²` for least squares; for
+    /// TRIAD `σ_i⁻²` on the two pairs used; for the robust methods `σ_i⁻²` on
+    /// the pairs of the final refit and 0 for rejected pairs.
     pub fn weights(&self) -> &[f64] {
         &self.weights
     }
 
     /// Solves Wahba's problem for `pairs` with `method`, optionally warm-started.
+    ///
+    /// The warm start is used by `lud` and `gnc-tls` (initial estimate), by
+    /// `consensus` (an extra hypothesis) and by `auto` (cheap refinement);
+    /// the closed forms ignore it. Vectors are normalised here; pairs with
+    /// non-finite or zero vectors or a bad σ are refused.
     pub fn solve(
         &mut self,
         pairs: &[Pair],
         method: Method,
         warm: Option<&UnitQuaternion<f64>>,
     ) -> Result<Outcome, SolveError> {
-        let _ = (pairs, method, warm);
-        todo!("solver work")
+        self.params.validate()?;
+        self.ws.load(pairs, self.params.gate_k)?;
+        let n = pairs.len();
+        self.weights.clear();
+        self.weights.resize(n, 0.0);
+        if n < 2 {
+            return Err(SolveError::Insufficient { n, needed: 2 });
+        }
+        let warm_a = warm.map(|q| q.to_rotation_matrix().into_inner());
+        let est = match method {
+            Method::Svd | Method::Ls | Method::QMethod => {
+                self.weights.copy_from_slice(&self.ws.inv_var);
+                let a = if method == Method::QMethod {
+                    qmethod::weighted_ls(&self.ws.pairs, &self.weights)?
+                } else {
+                    svd::weighted_ls(&self.ws.pairs, &self.weights)?
+                };
+                Estimate {
+                    a,
+                    iterations: 1,
+                    converged: true,
+                    method,
+                }
+            }
+            Method::Triad => {
+                let (p, q) = (&self.ws.pairs[0], &self.ws.pairs[1]);
+                let a = triad::triad_pair(p, q, triad::TRIAD_MIN_SIN).ok_or_else(|| {
+                    SolveError::Degenerate("the first two pairs are parallel".into())
+                })?;
+                self.weights[0] = self.ws.inv_var[0];
+                self.weights[1] = self.ws.inv_var[1];
+                Estimate {
+                    a,
+                    iterations: 1,
+                    converged: true,
+                    method,
+                }
+            }
+            Method::Lud => {
+                let est = lud::solve(&mut self.ws, &self.params, warm_a)?;
+                refit::finish(&mut self.ws, est, &mut self.weights)
+            }
+            Method::GncTls => {
+                let est = gnc::solve(&mut self.ws, &self.params, warm_a)?;
+                refit::finish(&mut self.ws, est, &mut self.weights)
+            }
+            Method::Consensus => {
+                let priors: &[Matrix3<f64>] = match &warm_a {
+                    Some(a) => std::slice::from_ref(a),
+                    None => &[],
+                };
+                let est = consensus::solve(&mut self.ws, &self.params, priors)?;
+                refit::finish(&mut self.ws, est, &mut self.weights)
+            }
+            Method::Auto => auto::solve(&mut self.ws, &self.params, warm_a, &mut self.weights)?,
+        };
+        if !rotation::is_rotation(&est.a) {
+            return Err(SolveError::Numerical(format!(
+                "{method} produced a non-rotation"
+            )));
+        }
+        Ok(Outcome {
+            q: rotation::quat_from_matrix(&est.a),
+            iterations: est.iterations,
+            converged: est.converged,
+            method: est.method,
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{RngExt, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    fn unit(rng: &mut ChaCha8Rng) -> Vector3<f64> {
+        loop {
+            let v = Vector3::new(
+                rng.random_range(-1.0..1.0),
+                rng.random_range(-1.0..1.0),
+                rng.random_range(-1.0..1.0),
+            );
+            let n = v.norm();
+            if n > 0.1 && n <= 1.0 {
+                return v / n;
+            }
+        }
+    }
+
+    fn clean_pairs(rng: &mut ChaCha8Rng, q: &UnitQuaternion<f64>, n: usize) -> Vec<Pair> {
+        (0..n)
+            .map(|_| {
+                let r = unit(rng);
+                Pair {
+                    b: q * r,
+                    r,
+                    sigma: rng.random_range(1e-4..1e-2),
+                }
+            })
+            .collect()
+    }
+
+    #[test]
+    fn every_method_recovers_clean_data() {
+        let mut rng = ChaCha8Rng::seed_from_u64(7);
+        let q = UnitQuaternion::from_scaled_axis(unit(&mut rng) * 2.0);
+        let pairs = clean_pairs(&mut rng, &q, 12);
+        let mut solver = Solver::new(SolveParams::default());
+        for method in Method::ALL {
+            let out = solver.solve(&pairs, method, None).unwrap();
+            let err = rotation::angle_between(&q, &out.q);
+            assert!(err <= 1e-12, "{method}: error {err}");
+            assert!(out.q.w >= 0.0);
+        }
+    }
+
+    #[test]
+    fn robust_methods_reject_planted_outliers() {
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        let q = UnitQuaternion::from_scaled_axis(unit(&mut rng) * 1.0);
+        let mut pairs = clean_pairs(&mut rng, &q, 40);
+        for p in pairs.iter_mut().take(16) {
+            p.b = unit(&mut rng);
+        }
+        let mut solver = Solver::new(SolveParams::default());
+        for method in [Method::Lud, Method::GncTls, Method::Consensus, Method::Auto] {
+            let out = solver.solve(&pairs, method, None).unwrap();
+            let err = rotation::angle_between(&q, &out.q);
+            assert!(err <= 1e-12, "{method}: error {err}");
+            assert!(solver.weights()[..16].iter().all(|&w| w == 0.0), "{method}");
+            assert!(solver.weights()[16..].iter().all(|&w| w > 0.0), "{method}");
+        }
+    }
+
+    #[test]
+    fn bad_input_is_refused() {
+        let mut solver = Solver::default();
+        let good = Pair {
+            b: Vector3::x(),
+            r: Vector3::x(),
+            sigma: 0.01,
+        };
+        let mut bad = good;
+        bad.r = Vector3::zeros();
+        assert!(matches!(
+            solver.solve(&[good, bad], Method::Svd, None),
+            Err(SolveError::InvalidPair { index: 1, .. })
+        ));
+        assert!(matches!(
+            solver.solve(&[good], Method::Auto, None),
+            Err(SolveError::Insufficient { n: 1, needed: 2 })
+        ));
     }
 }

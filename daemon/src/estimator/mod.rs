@@ -1,0 +1,832 @@
+//! The streaming estimator: a deterministic state machine from inputs to solutions and alerts.
+//!
+//! Inputs arrive in (roughly) data-time order: observations, rate samples,
+//! truth and clock ticks. [`Estimator::ingest`] appends what they cause to the
+//! caller's vector. Nothing here reads a wall clock: the same inputs give
+//! bit-identical outputs, which is what makes replays reproduce live runs.
+//!
+//! - [`config`]: [`EstimatorConfig`] and its parts, with units and defaults.
+//! - [`window`]: the buffered observations and epoch arithmetic.
+//! - [`propagate`]: rate integration carrying body vectors to the epoch.
+//! - [`alert`]: the hysteresis-and-hold alert machines.
+//!
+//! # Epochs (protocol § Epochs) and the rules chosen where it is silent
+//!
+//! - Data time advances with every accepted observation and rate sample and
+//!   with [`Input::Tick`]; it is the newest time seen. Truth never advances it
+//!   and is otherwise ignored, so outputs do not depend on whether truth flowed.
+//! - Epoch `E = kP` is solved once data time `>= E + L`, over the observations
+//!   with `E - S < t <= E`. The first epoch is the first multiple of `P` at or
+//!   after the first accepted observation's time; nothing is solved before it.
+//! - An epoch whose window is empty is skipped: no solution is published and it
+//!   is not counted. The next epoch tried is the first one whose window can hold
+//!   a buffered observation, or, with none buffered, the first one still open.
+//!   A jump in time therefore costs at most `ceil(S/P) + 1` solves, however long.
+//!   The `stale` alerts report the silence.
+//! - An observation with `t <= E₀ - S` for the oldest open epoch `E₀` is dropped
+//!   and counted (`dropped_too_old`); a later one, even if late, is used.
+//! - Per sensor, `t` must not decrease (equal times are allowed: several stars of
+//!   one frame) and `seq` must increase; otherwise the message is rejected.
+//!
+//! # Solutions
+//!
+//! - Each observation is carried to `E` by the rates (see [`propagate`]) and its
+//!   σ grows by `gyro_arw · √(E - t)` in quadrature. A window with no rate sample
+//!   in `(E - S, E]` is treated as static, σ unchanged, and the solution carries
+//!   `propagated: false`; when rates were used the key is absent.
+//! - The previous epoch's estimate, carried by the rates, warm-starts the solver.
+//!   A cold solve is forced at start-up, after skipped epochs, after an epoch
+//!   without a usable estimate (insufficient, unobservable) and when the set of
+//!   sensors in the window changed. `auto` itself falls back to a cold robust
+//!   solve when the warm one explains too few observations.
+//! - Status: `insufficient` (n < 2: `q` is the carried estimate or identity,
+//!   `cov` = [`UNOBSERVABLE_VARIANCE`]·I, `method` = `"none"`), `unobservable`
+//!   (the inliers span fewer than two directions or the solver found the geometry
+//!   degenerate: `q` is the carried estimate or identity, `cov` from the verdict,
+//!   huge on the undetermined axis), `degraded` (inlier fraction below
+//!   `alerts.inlier_fraction.level`), `ok`.
+//! - `verdicts` are always filled, in window (time) order; `sensors` lists the
+//!   sensors present in the window in name order.
+//!
+//! # Alerts
+//!
+//! Epoch alerts are judged at each published epoch, with `t = E`:
+//! `inlier_fraction` (value: the window's inlier fraction; not judged on
+//! insufficient epochs), `sensor_inliers` (value: one sensor's inlier share, judged
+//! when its window holds at least `alerts.sensor_min_obs` of its observations),
+//! `unobservable` (value: independent inlier directions, 0, 1 or 2, threshold 2;
+//! insufficient epochs count as unobservable). `stale` is judged whenever data
+//! time advances, for configured enabled sensors: raised at the first data time
+//! at which the sensor has been silent longer than its allowance (value: the
+//! silence, s; threshold: the allowance, s), cleared at its next message (value:
+//! the silence that ended). A sensor never heard from counts as silent since the
+//! first data time. Alerts follow the solution of their epoch.
+
+pub mod alert;
+pub mod config;
+pub mod propagate;
+pub mod window;
+
+use std::collections::BTreeMap;
+
+use nalgebra::{Matrix3, UnitQuaternion, Vector3};
+use wahbad_protocol::{
+    Alert, AlertState, ObsVerdict, SensorCount, Solution, SolutionStatus, ValidObs, ValidRate,
+    ValidTruth,
+};
+
+pub use alert::{LevelAlert, StaleAlert};
+pub use config::{
+    AlertsConfig, ConfigError, EstimatorConfig, LevelConfig, SensorConfig, SensorKind,
+};
+
+use crate::solve::{Pair, SolveError, Solver};
+use crate::verdict::{assess_into, Observability, Verdict, UNOBSERVABLE_VARIANCE};
+use config::Checked;
+use propagate::{Propagator, RateBuffer, RateSample};
+use window::{epoch_at_or_after, first_open_epoch, BufferedObs, ObsBuffer};
+
+/// One input of the estimator.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Input {
+    /// A validated observation.
+    Obs(ValidObs),
+    /// A validated rate sample.
+    Rate(ValidRate),
+    /// A validated truth attitude (counted, never used).
+    Truth(ValidTruth),
+    /// Data time, ns on the bench clock, has reached this value (live mode sends
+    /// it so epochs close and silence is seen when sources fall quiet).
+    Tick(i64),
+}
+
+/// One output of the estimator, in the protocol's shapes.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Output {
+    /// The solution of one epoch.
+    Solution(Solution),
+    /// An alert raised or cleared.
+    Alert(Alert),
+}
+
+/// Counters since the estimator was made.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Stats {
+    /// Observations and rate samples accepted into the buffers.
+    pub accepted: u64,
+    /// Messages rejected (see [`IngestError`]).
+    pub rejected: u64,
+    /// Valid observations and rate samples too old for any open window.
+    pub dropped_too_old: u64,
+    /// Observations and rate samples pushed out of a full buffer.
+    pub dropped_overflow: u64,
+    /// Epochs solved (solutions published).
+    pub epochs: u64,
+    /// Truth messages seen.
+    pub truths: u64,
+}
+
+/// Why an input was rejected; the `Display` text is the `reject` reason.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[non_exhaustive]
+pub enum IngestError {
+    /// The sensor's time went backwards.
+    #[error("sensor `{sensor}`: t={t} is before its previous t={prev_t}")]
+    TimeBackwards {
+        /// Sensor id.
+        sensor: String,
+        /// Time of the rejected message, ns.
+        t: i64,
+        /// Time of the sensor's previous message, ns.
+        prev_t: i64,
+    },
+    /// The sensor's sequence number did not increase.
+    #[error("sensor `{sensor}`: seq={seq} does not increase on its previous seq={prev_seq}")]
+    SeqNotIncreasing {
+        /// Sensor id.
+        sensor: String,
+        /// Sequence number of the rejected message.
+        seq: u64,
+        /// Sequence number of the sensor's previous message.
+        prev_seq: u64,
+    },
+    /// A new sensor id arrived with the table full.
+    #[error("sensor `{sensor}`: sensor table full ({max_sensors} sensors)")]
+    TooManySensors {
+        /// Sensor id.
+        sensor: String,
+        /// Configured `max_sensors`.
+        max_sensors: usize,
+    },
+    /// An observation without `sigma` from a sensor without a configured default.
+    #[error(
+        "sensor `{sensor}`: observation has no sigma and the sensor has no configured default"
+    )]
+    NoSigma {
+        /// Sensor id.
+        sensor: String,
+    },
+    /// The sensor is disabled in the configuration.
+    #[error("sensor `{sensor}` is disabled")]
+    Disabled {
+        /// Sensor id.
+        sensor: String,
+    },
+}
+
+impl IngestError {
+    /// The sensor id the rejected message carried.
+    pub fn sensor(&self) -> &str {
+        match self {
+            IngestError::TimeBackwards { sensor, .. }
+            | IngestError::SeqNotIncreasing { sensor, .. }
+            | IngestError::TooManySensors { sensor, .. }
+            | IngestError::NoSigma { sensor }
+            | IngestError::Disabled { sensor } => sensor,
+        }
+    }
+}
+
+/// What the estimator knows of one sensor id.
+#[derive(Debug, Clone)]
+struct SensorState {
+    name: String,
+    sigma: Option<f64>,
+    enabled: bool,
+    last_t: Option<i64>,
+    last_seq: Option<u64>,
+    /// Only configured, enabled sensors are watched for silence.
+    stale: Option<StaleAlert>,
+    inliers: LevelAlert,
+}
+
+/// The last estimate and the epoch it belongs to.
+#[derive(Debug, Clone, Copy)]
+struct Estimate {
+    t: i64,
+    q: UnitQuaternion<f64>,
+}
+
+/// The streaming estimator. See the module documentation for its rules.
+#[derive(Debug, Clone)]
+pub struct Estimator {
+    config: EstimatorConfig,
+    checked: Checked,
+    solver: Solver,
+    sensors: Vec<SensorState>,
+    sensor_by_name: BTreeMap<String, u16>,
+    /// Sensor indices in name order.
+    sensor_order: Vec<u16>,
+    obs: ObsBuffer,
+    rates: RateBuffer,
+    propagator: Propagator,
+    /// Newest data time seen.
+    newest_t: Option<i64>,
+    /// First data time seen (silence of never-heard sensors counts from here).
+    start_t: Option<i64>,
+    /// The next epoch to solve, once the first observation arrived.
+    next_epoch: Option<i64>,
+    estimate: Option<Estimate>,
+    force_cold: bool,
+    inlier_alert: LevelAlert,
+    unobservable_alert: LevelAlert,
+    stats: Stats,
+    // Scratch reused every epoch.
+    pairs: Vec<Pair>,
+    counts: Vec<(u32, u32)>,
+    present_before: Vec<bool>,
+    verdict: Verdict,
+}
+
+/// Solution `q` for a unit quaternion: `[w, x, y, z]`, `w >= 0`.
+fn wire_q(q: &UnitQuaternion<f64>) -> [f64; 4] {
+    let c = q.quaternion();
+    let sign = if c.w < 0.0 { -1.0 } else { 1.0 };
+    [sign * c.w, sign * c.i, sign * c.j, sign * c.k]
+}
+
+/// Row-major copy of a 3×3 matrix.
+fn wire_cov(m: &Matrix3<f64>) -> [f64; 9] {
+    std::array::from_fn(|idx| m[(idx / 3, idx % 3)])
+}
+
+fn unit(v: [f64; 3]) -> Vector3<f64> {
+    Vector3::from(v).normalize()
+}
+
+const NS_PER_S: f64 = 1e9;
+
+impl Estimator {
+    /// An estimator for `config`, after checking it.
+    pub fn new(config: EstimatorConfig) -> Result<Estimator, ConfigError> {
+        let checked = config.check()?;
+        let alerts = &config.alerts;
+        let mut estimator = Estimator {
+            solver: Solver::new(checked.solve.clone()),
+            sensors: Vec::with_capacity(config.max_sensors),
+            sensor_by_name: BTreeMap::new(),
+            sensor_order: Vec::with_capacity(config.max_sensors),
+            obs: ObsBuffer::with_capacity(config.max_window_obs),
+            rates: RateBuffer::with_capacity(config.max_rate_samples),
+            propagator: Propagator::default(),
+            newest_t: None,
+            start_t: None,
+            next_epoch: None,
+            estimate: None,
+            force_cold: true,
+            inlier_alert: LevelAlert::from_config(&alerts.inlier_fraction),
+            unobservable_alert: LevelAlert::new(
+                2.0,
+                0.0,
+                alerts.unobservable_hold_ms as i64 * 1_000_000,
+            ),
+            stats: Stats::default(),
+            pairs: Vec::with_capacity(config.max_window_obs),
+            counts: Vec::with_capacity(config.max_sensors),
+            present_before: Vec::with_capacity(config.max_sensors),
+            verdict: Verdict::default(),
+            checked,
+            config,
+        };
+        let configured: Vec<(String, SensorConfig)> = estimator
+            .config
+            .sensors
+            .iter()
+            .map(|(k, v)| (k.clone(), v.clone()))
+            .collect();
+        for (name, sensor) in configured {
+            estimator.register(name, Some(&sensor));
+        }
+        Ok(estimator)
+    }
+
+    /// The configuration in force.
+    pub fn config(&self) -> &EstimatorConfig {
+        &self.config
+    }
+
+    /// Counters since start.
+    pub fn stats(&self) -> Stats {
+        self.stats
+    }
+
+    /// Newest data time seen, ns.
+    pub fn data_time(&self) -> Option<i64> {
+        self.newest_t
+    }
+
+    /// The next epoch that will be solved, ns, once the first observation arrived.
+    pub fn next_epoch(&self) -> Option<i64> {
+        self.next_epoch
+    }
+
+    /// Feeds one input; solutions and alerts it causes are appended to `out`.
+    /// A rejected input changes nothing but the `rejected` counter.
+    pub fn ingest(&mut self, input: Input, out: &mut Vec<Output>) -> Result<(), IngestError> {
+        let result = match input {
+            Input::Obs(obs) => self.ingest_obs(obs, out),
+            Input::Rate(rate) => self.ingest_rate(rate, out),
+            Input::Truth(_) => {
+                self.stats.truths += 1;
+                Ok(())
+            }
+            Input::Tick(t) => {
+                self.advance(t, out);
+                Ok(())
+            }
+        };
+        if result.is_err() {
+            self.stats.rejected += 1;
+        }
+        result
+    }
+
+    fn register(&mut self, name: String, config: Option<&SensorConfig>) -> u16 {
+        let idx = self.sensors.len() as u16;
+        let default_stale_ms = self.config.alerts.stale_default_ms;
+        let state = SensorState {
+            sigma: config.and_then(|c| c.sigma),
+            enabled: config.is_none_or(|c| c.enabled),
+            last_t: None,
+            last_seq: None,
+            stale: config
+                .filter(|c| c.enabled)
+                .map(|c| StaleAlert::new(c.stale_allowance_ns(default_stale_ms))),
+            inliers: LevelAlert::from_config(&self.config.alerts.sensor_inliers),
+            name: name.clone(),
+        };
+        let at = self
+            .sensor_order
+            .partition_point(|&i| self.sensors[i as usize].name < name);
+        self.sensor_order.insert(at, idx);
+        self.sensors.push(state);
+        self.sensor_by_name.insert(name, idx);
+        idx
+    }
+
+    /// Checks the per-sensor rules and records the message; returns the sensor index.
+    fn admit(
+        &mut self,
+        sensor: &str,
+        seq: u64,
+        t: i64,
+        needs_sigma: bool,
+        out: &mut Vec<Output>,
+    ) -> Result<u16, IngestError> {
+        let idx = match self.sensor_by_name.get(sensor) {
+            Some(&idx) => idx,
+            None => {
+                if needs_sigma {
+                    return Err(IngestError::NoSigma {
+                        sensor: sensor.to_string(),
+                    });
+                }
+                if self.sensors.len() >= self.config.max_sensors {
+                    return Err(IngestError::TooManySensors {
+                        sensor: sensor.to_string(),
+                        max_sensors: self.config.max_sensors,
+                    });
+                }
+                self.register(sensor.to_string(), None)
+            }
+        };
+        let state = &self.sensors[idx as usize];
+        if !state.enabled {
+            return Err(IngestError::Disabled {
+                sensor: sensor.to_string(),
+            });
+        }
+        if let Some(prev_t) = state.last_t.filter(|&prev_t| t < prev_t) {
+            return Err(IngestError::TimeBackwards {
+                sensor: sensor.to_string(),
+                t,
+                prev_t,
+            });
+        }
+        if let Some(prev_seq) = state.last_seq.filter(|&prev_seq| seq <= prev_seq) {
+            return Err(IngestError::SeqNotIncreasing {
+                sensor: sensor.to_string(),
+                seq,
+                prev_seq,
+            });
+        }
+        if needs_sigma && state.sigma.is_none() {
+            return Err(IngestError::NoSigma {
+                sensor: sensor.to_string(),
+            });
+        }
+        let start_t = self.start_t.unwrap_or(t);
+        let state = &mut self.sensors[idx as usize];
+        let silent_since = state.last_t.unwrap_or(start_t.min(t));
+        state.last_t = Some(t);
+        state.last_seq = Some(seq);
+        if let Some(stale) = state.stale.as_mut() {
+            if let Some(change) = stale.on_message() {
+                let silence_s = (t - silent_since) as f64 / NS_PER_S;
+                let threshold = stale.allowance_ns() as f64 / NS_PER_S;
+                out.push(Output::Alert(Alert {
+                    t,
+                    kind: "stale".into(),
+                    state: change,
+                    value: silence_s,
+                    threshold,
+                    sensor: Some(state.name.clone()),
+                    message: format!(
+                        "sensor `{}` is sending again after {silence_s:.3} s of silence",
+                        state.name
+                    ),
+                }));
+            }
+        }
+        Ok(idx)
+    }
+
+    fn ingest_obs(&mut self, obs: ValidObs, out: &mut Vec<Output>) -> Result<(), IngestError> {
+        let idx = self.admit(&obs.sensor, obs.seq, obs.t, obs.sigma.is_none(), out)?;
+        let sigma = obs
+            .sigma
+            .or(self.sensors[idx as usize].sigma)
+            .expect("admit checked sigma");
+        let too_old = self
+            .next_epoch
+            .is_some_and(|e| obs.t <= e - self.checked.span_ns);
+        if too_old {
+            self.stats.dropped_too_old += 1;
+        } else {
+            let buffered = BufferedObs {
+                t: obs.t,
+                seq: obs.seq,
+                sensor_idx: idx,
+                b: unit(obs.b),
+                r: unit(obs.r),
+                sigma,
+            };
+            if self.obs.insert(buffered, self.config.max_window_obs) {
+                self.stats.dropped_overflow += 1;
+            }
+            self.stats.accepted += 1;
+            if self.next_epoch.is_none() {
+                self.next_epoch = Some(epoch_at_or_after(obs.t, self.checked.period_ns));
+            }
+        }
+        self.advance(obs.t, out);
+        Ok(())
+    }
+
+    fn ingest_rate(&mut self, rate: ValidRate, out: &mut Vec<Output>) -> Result<(), IngestError> {
+        self.admit(&rate.sensor, rate.seq, rate.t, false, out)?;
+        let cutoff = self.next_epoch.map(|e| e - self.checked.span_ns);
+        if cutoff.is_some_and(|cutoff| self.rates.is_obsolete(rate.t, cutoff)) {
+            self.stats.dropped_too_old += 1;
+        } else {
+            let sample = RateSample {
+                t: rate.t,
+                w: Vector3::from(rate.w),
+            };
+            if self.rates.insert(sample, self.config.max_rate_samples) {
+                self.stats.dropped_overflow += 1;
+            }
+            self.stats.accepted += 1;
+        }
+        self.advance(rate.t, out);
+        Ok(())
+    }
+
+    /// Data time reached `t`: judge silence, then close every closable epoch.
+    fn advance(&mut self, t: i64, out: &mut Vec<Output>) {
+        let start_t = *self.start_t.get_or_insert(t);
+        let newest = self.newest_t.map_or(t, |n| n.max(t));
+        self.newest_t = Some(newest);
+        for &idx in &self.sensor_order {
+            let state = &mut self.sensors[idx as usize];
+            let Some(stale) = state.stale.as_mut() else {
+                continue;
+            };
+            let last = state.last_t.unwrap_or(start_t);
+            if let Some(change) = stale.on_clock(newest, last) {
+                let silence_s = (newest - last) as f64 / NS_PER_S;
+                let threshold = stale.allowance_ns() as f64 / NS_PER_S;
+                out.push(Output::Alert(Alert {
+                    t: newest,
+                    kind: "stale".into(),
+                    state: change,
+                    value: silence_s,
+                    threshold,
+                    sensor: Some(state.name.clone()),
+                    message: format!(
+                        "sensor `{}` silent for {silence_s:.3} s, allowance {threshold:.3} s",
+                        state.name
+                    ),
+                }));
+            }
+        }
+        self.close_epochs(newest, out);
+    }
+
+    fn close_epochs(&mut self, newest: i64, out: &mut Vec<Output>) {
+        let Some(mut epoch) = self.next_epoch else {
+            return;
+        };
+        let Checked {
+            period_ns,
+            span_ns,
+            latency_ns,
+            ..
+        } = self.checked;
+        while epoch.saturating_add(latency_ns) <= newest {
+            self.obs.prune(epoch - span_ns);
+            self.rates.prune((epoch - span_ns).min(epoch - period_ns));
+            let range = self.obs.range(epoch - span_ns, epoch);
+            if range.is_empty() {
+                // Empty window: skip to the first epoch that can hold a buffered
+                // observation (all buffered ones are later than `epoch`).
+                self.force_cold = true;
+                epoch = match self.obs.first_t() {
+                    Some(t) => epoch_at_or_after(t, period_ns).max(epoch + period_ns),
+                    None => first_open_epoch(newest, period_ns, latency_ns),
+                };
+                continue;
+            }
+            self.solve_epoch(epoch, range, out);
+            epoch += period_ns;
+        }
+        self.next_epoch = Some(epoch);
+    }
+
+    fn solve_epoch(&mut self, epoch: i64, range: std::ops::Range<usize>, out: &mut Vec<Output>) {
+        let Checked {
+            period_ns,
+            span_ns,
+            gate_k,
+            ..
+        } = self.checked;
+        let propagated = self.rates.any_in(epoch - span_ns, epoch);
+        // The previous estimate is carried by the rates only from the epoch just before.
+        let consecutive = self.estimate.filter(|e| e.t == epoch - period_ns);
+        let oldest = self.obs.get(range.start).t;
+        if propagated {
+            let from = consecutive.map_or(oldest, |e| e.t.min(oldest));
+            self.propagator.build(&self.rates, from, epoch);
+        }
+        let carried = self.estimate.map(|e| match consecutive {
+            Some(_) if propagated => self.propagator.to_epoch(e.t) * e.q,
+            _ => e.q,
+        });
+
+        // Pairs at the epoch, per-sensor presence.
+        self.pairs.clear();
+        self.counts.clear();
+        self.counts.resize(self.sensors.len(), (0, 0));
+        let arw2 = self.config.gyro_arw * self.config.gyro_arw;
+        for obs_idx in range.clone() {
+            let obs = self.obs.get(obs_idx);
+            let (b, sigma) = if propagated {
+                let dt_s = (epoch - obs.t) as f64 / NS_PER_S;
+                let b = self.propagator.to_epoch(obs.t) * obs.b;
+                (b, (obs.sigma * obs.sigma + arw2 * dt_s).sqrt())
+            } else {
+                (obs.b, obs.sigma)
+            };
+            self.pairs.push(Pair { b, r: obs.r, sigma });
+            self.counts[obs.sensor_idx as usize].0 += 1;
+        }
+        let geometry_changed = self.present_before.len() != self.counts.len()
+            || self
+                .present_before
+                .iter()
+                .zip(&self.counts)
+                .any(|(&was, &(n, _))| was != (n > 0));
+        self.present_before.clear();
+        self.present_before
+            .extend(self.counts.iter().map(|&(n, _)| n > 0));
+
+        let fallback_q = carried.unwrap_or_else(UnitQuaternion::identity);
+        let warm = if self.force_cold || geometry_changed || consecutive.is_none() {
+            None
+        } else {
+            carried
+        };
+        let n = self.pairs.len();
+        let configured_method = self.config.method;
+        let level = self.config.alerts.inlier_fraction.level;
+        let huge = Matrix3::identity() * UNOBSERVABLE_VARIANCE;
+        // (status, q, cov, method, iterations, independent inlier directions)
+        let (status, q, cov, method, iterations, directions) = if n < 2 {
+            assess_into(&mut self.verdict, &self.pairs, &fallback_q, gate_k);
+            let directions = n as f64;
+            (
+                SolutionStatus::Insufficient,
+                fallback_q,
+                huge,
+                "none",
+                0,
+                directions,
+            )
+        } else {
+            match self
+                .solver
+                .solve(&self.pairs, configured_method, warm.as_ref())
+            {
+                Ok(outcome) => {
+                    assess_into(&mut self.verdict, &self.pairs, &outcome.q, gate_k);
+                    let verdict = &self.verdict;
+                    let (method, iterations) = (outcome.method.as_str(), outcome.iterations);
+                    match verdict.observability {
+                        Observability::Full => {
+                            let status = if verdict.inlier_fraction < level {
+                                SolutionStatus::Degraded
+                            } else {
+                                SolutionStatus::Ok
+                            };
+                            (
+                                status,
+                                outcome.q,
+                                verdict.covariance,
+                                method,
+                                iterations,
+                                2.0,
+                            )
+                        }
+                        Observability::Unobservable { .. } => {
+                            let cov = verdict.covariance;
+                            (
+                                SolutionStatus::Unobservable,
+                                fallback_q,
+                                cov,
+                                method,
+                                iterations,
+                                1.0,
+                            )
+                        }
+                        Observability::Insufficient => {
+                            let directions = verdict.n_inliers.min(1) as f64;
+                            let status = SolutionStatus::Unobservable;
+                            (status, fallback_q, huge, method, iterations, directions)
+                        }
+                    }
+                }
+                Err(err) => {
+                    assess_into(&mut self.verdict, &self.pairs, &fallback_q, gate_k);
+                    let status = match err {
+                        SolveError::Insufficient { .. } => SolutionStatus::Insufficient,
+                        _ => SolutionStatus::Unobservable,
+                    };
+                    (status, fallback_q, huge, configured_method.as_str(), 0, 1.0)
+                }
+            }
+        };
+        let solved = matches!(status, SolutionStatus::Ok | SolutionStatus::Degraded);
+        self.force_cold = !solved;
+        self.estimate = Some(Estimate {
+            t: epoch,
+            q: if solved { q } else { fallback_q },
+        });
+
+        // Verdicts and per-sensor counts.
+        let mut verdicts = Vec::with_capacity(n);
+        for (pair_idx, obs_idx) in range.enumerate() {
+            let obs = self.obs.get(obs_idx);
+            let inlier = self.verdict.inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
+            if inlier {
+                self.counts[obs.sensor_idx as usize].1 += 1;
+            }
+            verdicts.push(ObsVerdict {
+                sensor: self.sensors[obs.sensor_idx as usize].name.clone(),
+                seq: obs.seq,
+                residual: self.verdict.residuals[pair_idx],
+                inlier,
+            });
+        }
+        let n_inliers: u32 = self.counts.iter().map(|c| c.1).sum();
+        let inlier_fraction = n_inliers as f64 / n as f64;
+        let sensors: Vec<SensorCount> = self
+            .sensor_order
+            .iter()
+            .filter_map(|&idx| {
+                let (n, n_inliers) = self.counts[idx as usize];
+                (n > 0).then(|| SensorCount {
+                    sensor: self.sensors[idx as usize].name.clone(),
+                    n,
+                    n_inliers,
+                })
+            })
+            .collect();
+        out.push(Output::Solution(Solution {
+            t: epoch,
+            q: wire_q(&q),
+            cov: wire_cov(&cov),
+            status,
+            inlier_fraction,
+            n: n as u32,
+            n_inliers,
+            method: method.to_string(),
+            iterations,
+            sensors,
+            verdicts: Some(verdicts),
+            propagated: (!propagated).then_some(false),
+        }));
+        self.stats.epochs += 1;
+        self.judge_epoch_alerts(epoch, status, inlier_fraction, directions, out);
+    }
+
+    fn judge_epoch_alerts(
+        &mut self,
+        epoch: i64,
+        status: SolutionStatus,
+        inlier_fraction: f64,
+        directions: f64,
+        out: &mut Vec<Output>,
+    ) {
+        if status != SolutionStatus::Insufficient {
+            let level = self.inlier_alert.level();
+            if let Some(change) = self.inlier_alert.update(epoch, inlier_fraction) {
+                let message = match change {
+                    AlertState::Raised => {
+                        format!("window inlier fraction {inlier_fraction:.3} is below {level:.3}")
+                    }
+                    AlertState::Cleared => {
+                        format!(
+                            "window inlier fraction {inlier_fraction:.3} is back above {level:.3}"
+                        )
+                    }
+                };
+                out.push(alert(
+                    epoch,
+                    "inlier_fraction",
+                    change,
+                    inlier_fraction,
+                    level,
+                    None,
+                    message,
+                ));
+            }
+        }
+        let min_obs = self.config.alerts.sensor_min_obs.max(1);
+        for &idx in &self.sensor_order {
+            let (n, n_inliers) = self.counts[idx as usize];
+            if n < min_obs {
+                continue;
+            }
+            let state = &mut self.sensors[idx as usize];
+            let share = n_inliers as f64 / n as f64;
+            let level = state.inliers.level();
+            if let Some(change) = state.inliers.update(epoch, share) {
+                let name = &state.name;
+                let message = match change {
+                    AlertState::Raised => {
+                        format!("sensor `{name}`: inlier share {share:.3} is below {level:.3}")
+                    }
+                    AlertState::Cleared => {
+                        format!("sensor `{name}`: inlier share {share:.3} is back above {level:.3}")
+                    }
+                };
+                out.push(alert(
+                    epoch,
+                    "sensor_inliers",
+                    change,
+                    share,
+                    level,
+                    Some(name.clone()),
+                    message,
+                ));
+            }
+        }
+        if let Some(change) = self.unobservable_alert.update(epoch, directions) {
+            let message = match change {
+                AlertState::Raised => format!(
+                    "attitude unobservable: inliers span {directions} independent directions, need 2"
+                ),
+                AlertState::Cleared => "attitude observable again on all three axes".to_string(),
+            };
+            out.push(alert(
+                epoch,
+                "unobservable",
+                change,
+                directions,
+                2.0,
+                None,
+                message,
+            ));
+        }
+    }
+}
+
+fn alert(
+    t: i64,
+    kind: &str,
+    state: AlertState,
+    value: f64,
+    threshold: f64,
+    sensor: Option<String>,
+    message: String,
+) -> Output {
+    Output::Alert(Alert {
+        t,
+        kind: kind.to_string(),
+        state,
+        value,
+        threshold,
+        sensor,
+        message,
+    })
+}

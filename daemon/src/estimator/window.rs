@@ -1,0 +1,147 @@
+//! The buffered observations of the open windows, and epoch arithmetic.
+//!
+//! Observations are kept in time order (ties in arrival order), so the window
+//! of epoch `E`, `E - S < t <= E`, is a contiguous range found by binary search.
+//! The buffer holds at most the configured number of observations; inserting
+//! beyond it drops the oldest (which may be the one just inserted).
+
+use std::collections::VecDeque;
+
+use nalgebra::Vector3;
+
+/// One accepted observation waiting in the buffer.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct BufferedObs {
+    /// Measurement time, ns.
+    pub t: i64,
+    /// Sequence number.
+    pub seq: u64,
+    /// Index into the estimator's sensor table.
+    pub sensor_idx: u16,
+    /// Body-frame unit vector at `t`.
+    pub b: Vector3<f64>,
+    /// Reference-frame unit vector.
+    pub r: Vector3<f64>,
+    /// 1-σ angular noise, rad (message value or the sensor's default).
+    pub sigma: f64,
+}
+
+/// Time-ordered observations of the open windows.
+#[derive(Debug, Clone, Default)]
+pub struct ObsBuffer {
+    obs: VecDeque<BufferedObs>,
+}
+
+impl ObsBuffer {
+    /// An empty buffer with room for `capacity` observations.
+    pub fn with_capacity(capacity: usize) -> Self {
+        ObsBuffer {
+            obs: VecDeque::with_capacity(capacity + 1),
+        }
+    }
+
+    /// Observations held.
+    pub fn len(&self) -> usize {
+        self.obs.len()
+    }
+
+    /// Whether none is held.
+    pub fn is_empty(&self) -> bool {
+        self.obs.is_empty()
+    }
+
+    /// The observation at `idx` in time order.
+    pub fn get(&self, idx: usize) -> &BufferedObs {
+        &self.obs[idx]
+    }
+
+    /// Time of the oldest observation held.
+    pub fn first_t(&self) -> Option<i64> {
+        self.obs.front().map(|o| o.t)
+    }
+
+    /// Inserts in time order; when more than `capacity` are then held, drops the
+    /// oldest and returns true.
+    pub fn insert(&mut self, obs: BufferedObs, capacity: usize) -> bool {
+        let at = self.obs.partition_point(|o| o.t <= obs.t);
+        self.obs.insert(at, obs);
+        if self.obs.len() > capacity {
+            self.obs.pop_front();
+            return true;
+        }
+        false
+    }
+
+    /// Forgets observations with `t <= cutoff` (no open window holds them).
+    pub fn prune(&mut self, cutoff: i64) {
+        while self.obs.front().is_some_and(|o| o.t <= cutoff) {
+            self.obs.pop_front();
+        }
+    }
+
+    /// Index range of the observations with `after < t <= upto`.
+    pub fn range(&self, after: i64, upto: i64) -> std::ops::Range<usize> {
+        let lo = self.obs.partition_point(|o| o.t <= after);
+        let hi = self.obs.partition_point(|o| o.t <= upto);
+        lo..hi.max(lo)
+    }
+}
+
+/// The first multiple of `period` at or after `t`.
+pub fn epoch_at_or_after(t: i64, period: i64) -> i64 {
+    let rem = t.rem_euclid(period);
+    if rem == 0 {
+        t
+    } else {
+        t.saturating_add(period - rem)
+    }
+}
+
+/// The first epoch `E` (multiple of `period`) not yet closable at `newest`,
+/// i.e. with `E + latency > newest`.
+pub fn first_open_epoch(newest: i64, period: i64, latency: i64) -> i64 {
+    epoch_at_or_after(newest.saturating_sub(latency).saturating_add(1), period)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn obs(t: i64, seq: u64) -> BufferedObs {
+        BufferedObs {
+            t,
+            seq,
+            sensor_idx: 0,
+            b: Vector3::x(),
+            r: Vector3::x(),
+            sigma: 1e-3,
+        }
+    }
+
+    #[test]
+    fn epoch_arithmetic_handles_negative_and_exact_times() {
+        assert_eq!(epoch_at_or_after(0, 100), 0);
+        assert_eq!(epoch_at_or_after(1, 100), 100);
+        assert_eq!(epoch_at_or_after(100, 100), 100);
+        assert_eq!(epoch_at_or_after(-150, 100), -100);
+        // Newest 1049 with L = 50: epoch 1000 needs 1050, so it is still open.
+        assert_eq!(first_open_epoch(1049, 100, 50), 1000);
+        assert_eq!(first_open_epoch(1050, 100, 50), 1100);
+    }
+
+    #[test]
+    fn buffer_keeps_time_order_and_caps() {
+        let mut buf = ObsBuffer::with_capacity(3);
+        assert!(!buf.insert(obs(30, 1), 3));
+        assert!(!buf.insert(obs(10, 2), 3));
+        assert!(!buf.insert(obs(30, 3), 3));
+        let seqs: Vec<u64> = (0..buf.len()).map(|i| buf.get(i).seq).collect();
+        assert_eq!(seqs, [2, 1, 3]);
+        assert_eq!(buf.range(10, 30), 1..3);
+        assert_eq!(buf.range(30, 40), 3..3);
+        assert!(buf.insert(obs(5, 4), 3)); // the newcomer is the oldest: it goes
+        assert_eq!(buf.first_t(), Some(10));
+        buf.prune(30);
+        assert!(buf.is_empty());
+    }
+}

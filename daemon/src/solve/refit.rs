@@ -1,0 +1,156 @@
+//! The common last step of every robust method: a weighted least-squares
+//! refit on the χ²-gate inliers, so that once the outliers are out the
+//! estimate is as efficient as least squares on the inliers alone.
+//!
+//! Convergence rule: gate at the current rotation → refit on that set →
+//! gate again; stop when the set no longer changes ("stable"), after at most
+//! [`REFIT_MAX_PASSES`] refits. With fewer than two inliers, or when the
+//! refit fails (e.g. the inliers cancel), the rotation is kept as it is.
+//!
+//! The gate is `‖b_i − A r_i‖² ≤ (2 sin(k σ_i / 2))²`, the chord form of
+//! `θ_i ≤ k σ_i` (cheaper, same set).
+
+use nalgebra::Matrix3;
+
+use super::{svd, Estimate, Pair, Workspace};
+
+/// Refit passes at most.
+pub const REFIT_MAX_PASSES: u32 = 5;
+
+/// What a refit produced.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) struct Refit {
+    /// The refitted rotation.
+    pub a: Matrix3<f64>,
+    /// Least-squares refits done.
+    pub passes: u32,
+    /// Whether the inlier set stopped changing.
+    pub stable: bool,
+    /// Inliers of the set the rotation was fitted on.
+    pub n_inliers: usize,
+    /// `Σ_inliers ‖b_i − A r_i‖² σ_i⁻²` at `a` (tie-breaks between hypotheses).
+    pub cost: f64,
+}
+
+/// Squared chord residual `‖b − A r‖²`.
+#[inline]
+pub(crate) fn chord2(a: &Matrix3<f64>, p: &Pair) -> f64 {
+    (p.b - a * p.r).norm_squared()
+}
+
+/// Inlier count and cost of rotation `a` (see [`Refit::cost`]).
+pub(crate) fn score(
+    pairs: &[Pair],
+    inv_var: &[f64],
+    gate_chord2: &[f64],
+    a: &Matrix3<f64>,
+) -> (usize, f64) {
+    let mut count = 0;
+    let mut cost = 0.0;
+    for ((p, &w), &g) in pairs.iter().zip(inv_var).zip(gate_chord2) {
+        let e2 = chord2(a, p);
+        if e2 <= g {
+            count += 1;
+            cost += e2 * w;
+        }
+    }
+    (count, cost)
+}
+
+/// Whether `(count, cost)` beats `(best_count, best_cost)`: more inliers, then lower cost.
+pub(crate) fn better(count: usize, cost: f64, best_count: usize, best_cost: f64) -> bool {
+    count > best_count || (count == best_count && cost < best_cost)
+}
+
+/// Gates at `a` into `weights`/`inl`; returns (inliers, whether the set changed, cost).
+fn gate(
+    pairs: &[Pair],
+    inv_var: &[f64],
+    gate_chord2: &[f64],
+    a: &Matrix3<f64>,
+    weights: &mut [f64],
+    inl: &mut [bool],
+) -> (usize, bool, f64) {
+    let mut count = 0;
+    let mut changed = false;
+    let mut cost = 0.0;
+    for i in 0..pairs.len() {
+        let e2 = chord2(a, &pairs[i]);
+        let is_in = e2 <= gate_chord2[i];
+        changed |= is_in != inl[i];
+        inl[i] = is_in;
+        if is_in {
+            count += 1;
+            cost += e2 * inv_var[i];
+            weights[i] = inv_var[i];
+        } else {
+            weights[i] = 0.0;
+        }
+    }
+    (count, changed, cost)
+}
+
+/// Refits from `a0` on the gate inliers (see the module doc for the rule).
+/// On return `weights`/`inl` hold the set `a` was fitted on.
+pub(crate) fn refit(
+    pairs: &[Pair],
+    inv_var: &[f64],
+    gate_chord2: &[f64],
+    a0: Matrix3<f64>,
+    weights: &mut [f64],
+    inl: &mut [bool],
+    max_passes: u32,
+) -> Refit {
+    let mut a = a0;
+    let (mut n_in, _, mut cost) = gate(pairs, inv_var, gate_chord2, &a, weights, inl);
+    let mut passes = 0;
+    let mut stable = false;
+    while n_in >= 2 && passes < max_passes {
+        let Ok(a_new) = svd::weighted_ls(pairs, weights) else {
+            break;
+        };
+        passes += 1;
+        let (n_new, changed, cost_new) = gate(pairs, inv_var, gate_chord2, &a_new, weights, inl);
+        a = a_new;
+        n_in = n_new;
+        cost = cost_new;
+        if !changed {
+            stable = true;
+            break;
+        }
+    }
+    if !stable && passes > 0 && n_in >= 2 {
+        // The cap was hit with a changed set: fit once more so `a` matches `weights`.
+        if let Ok(a_new) = svd::weighted_ls(pairs, weights) {
+            a = a_new;
+            passes += 1;
+            cost = score(pairs, inv_var, gate_chord2, &a).1;
+        }
+    }
+    Refit {
+        a,
+        passes,
+        stable,
+        n_inliers: n_in,
+        cost,
+    }
+}
+
+/// Ends a robust method: refit on the inliers, writing the final weights.
+pub(crate) fn finish(ws: &mut Workspace, est: Estimate, weights: &mut [f64]) -> Estimate {
+    let r = refit(
+        &ws.pairs,
+        &ws.inv_var,
+        &ws.gate_chord2,
+        est.a,
+        weights,
+        &mut ws.inl,
+        REFIT_MAX_PASSES,
+    );
+    Estimate {
+        a: r.a,
+        iterations: est.iterations + r.passes,
+        converged: est.converged && r.stable,
+        method: est.method,
+    }
+}
