@@ -9,6 +9,11 @@ use serde::{Deserialize, Serialize};
 /// Protocol version spoken by this crate.
 pub const PROTOCOL_VERSION: u32 = 1;
 
+/// Variance, rad², written in `cov` for an axis the inliers leave
+/// undetermined (`status` `unobservable`): finite, so that JSON (logs,
+/// reports), which has no infinity, carries the same value.
+pub const UNOBSERVABLE_VARIANCE: f64 = 1e12;
+
 /// One protocol message, tagged by its `type` key.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "type", rename_all = "snake_case")]
@@ -39,6 +44,31 @@ pub enum Message {
     Status(Status),
 }
 
+/// The `type` strings of every message this crate knows, in [`Message`] order.
+pub const MESSAGE_TYPES: [&str; 11] = [
+    "hello", "welcome", "error", "obs", "rate", "truth", "reject", "solution", "alert", "lagged",
+    "status",
+];
+
+impl Message {
+    /// The wire `type` string of this message.
+    pub fn type_name(&self) -> &'static str {
+        match self {
+            Message::Hello(_) => "hello",
+            Message::Welcome(_) => "welcome",
+            Message::Error(_) => "error",
+            Message::Obs(_) => "obs",
+            Message::Rate(_) => "rate",
+            Message::Truth(_) => "truth",
+            Message::Reject(_) => "reject",
+            Message::Solution(_) => "solution",
+            Message::Alert(_) => "alert",
+            Message::Lagged(_) => "lagged",
+            Message::Status(_) => "status",
+        }
+    }
+}
+
 /// Role announced in `hello`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
@@ -53,6 +83,12 @@ pub enum Role {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Hello {
     /// Protocol version the client speaks; `1`.
+    ///
+    /// The protocol says `int`: any integer is read, and one outside the `u32`
+    /// range is clamped (below 0 to 0, above to `u32::MAX`), neither of which
+    /// is a supported version, so the daemon answers `error version` as for
+    /// any other unsupported version, not `error hello`.
+    #[serde(deserialize_with = "int_clamped_to_u32")]
     pub version: u32,
     /// What the connection is for.
     pub role: Role,
@@ -65,6 +101,36 @@ pub struct Hello {
     /// Subscribers only: include per-observation verdicts (default `true`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub verdicts: Option<bool>,
+}
+
+impl Hello {
+    /// Whether a subscriber gets per-observation verdicts in its solutions:
+    /// the `verdicts` key, `true` when absent. Meaningless for a source.
+    pub fn wants_verdicts(&self) -> bool {
+        self.verdicts.unwrap_or(true)
+    }
+}
+
+/// Reads any MessagePack integer into a `u32`, clamping out-of-range values.
+fn int_clamped_to_u32<'de, D: serde::Deserializer<'de>>(deserializer: D) -> Result<u32, D::Error> {
+    struct Clamped;
+    impl serde::de::Visitor<'_> for Clamped {
+        type Value = u32;
+        fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+            f.write_str("an integer")
+        }
+        fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<u32, E> {
+            Ok(u32::try_from(v).unwrap_or(u32::MAX))
+        }
+        fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<u32, E> {
+            Ok(if v < 0 {
+                0
+            } else {
+                u32::try_from(v).unwrap_or(u32::MAX)
+            })
+        }
+    }
+    deserializer.deserialize_u32(Clamped)
 }
 
 /// `welcome`: the daemon accepted the `hello`.
@@ -95,7 +161,9 @@ pub enum ErrorCode {
     Auth,
     /// The first frame is not a valid `hello`.
     Hello,
-    /// Bad length prefix, frame too large, undecodable MessagePack.
+    /// Bad length prefix (zero, over 65536) or a stream cut inside a frame;
+    /// in the first frame of a connection also a body that is not decodable
+    /// MessagePack (later, such a body only gets a `reject`).
     Framing,
     /// Connection limit reached.
     Busy,
@@ -120,6 +188,34 @@ impl ErrorCode {
     }
 }
 
+impl ErrorCode {
+    /// Every code, in declaration order.
+    pub const ALL: [ErrorCode; 7] = [
+        ErrorCode::Version,
+        ErrorCode::Auth,
+        ErrorCode::Hello,
+        ErrorCode::Framing,
+        ErrorCode::Busy,
+        ErrorCode::Timeout,
+        ErrorCode::Shutdown,
+    ];
+
+    /// The code whose wire string is `code`, if it is one of ours.
+    pub fn from_wire(code: &str) -> Option<ErrorCode> {
+        ErrorCode::ALL.into_iter().find(|c| c.as_str() == code)
+    }
+}
+
+impl ErrorMessage {
+    /// An `error` message with one of our codes.
+    pub fn new(code: ErrorCode, message: impl Into<String>) -> ErrorMessage {
+        ErrorMessage {
+            code: code.as_str().to_string(),
+            message: message.into(),
+        }
+    }
+}
+
 impl std::fmt::Display for ErrorCode {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.write_str(self.as_str())
@@ -139,7 +235,8 @@ pub struct Obs {
     pub b: [f64; 3],
     /// The same direction in the reference frame (any non-zero length).
     pub r: [f64; 3],
-    /// 1-σ angular noise in radians, `0 < sigma < π`; absent: the sensor's default.
+    /// 1-σ angular noise in radians, `0 < sigma < π`; absent: the sensor's
+    /// configured default, and rejected when the sensor has none.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub sigma: Option<f64>,
     /// Shared secret; only meaningful on UDP, where there is no `hello`.
@@ -308,11 +405,100 @@ pub struct Lagged {
 }
 
 /// `status`: a request (no counters) or an answer (all counters present).
-#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+///
+/// On the wire a request is `{type:"status"}` and an answer carries every
+/// counter of [`StatusReport`] beside `type`. A map with some counters but not
+/// all is invalid (missing key), never silently taken for a request.
+#[derive(Debug, Clone, PartialEq, Default)]
 pub struct Status {
     /// The counters; `None` in a request.
-    #[serde(flatten, default, skip_serializing_if = "Option::is_none")]
     pub report: Option<StatusReport>,
+}
+
+impl Status {
+    /// A status request: `{type:"status"}`.
+    pub fn request() -> Status {
+        Status { report: None }
+    }
+
+    /// A status answer carrying `report`.
+    pub fn answer(report: StatusReport) -> Status {
+        Status {
+            report: Some(report),
+        }
+    }
+}
+
+/// Wire names of the counters, in encoding order.
+const STATUS_KEYS: [&str; 7] = [
+    "uptime_s",
+    "sources",
+    "subscribers",
+    "accepted",
+    "rejected",
+    "dropped",
+    "epochs",
+];
+
+impl Serialize for Status {
+    fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        use serde::ser::SerializeStruct;
+        let Some(report) = &self.report else {
+            return serializer.serialize_struct("Status", 0)?.end();
+        };
+        let mut map = serializer.serialize_struct("Status", STATUS_KEYS.len())?;
+        map.serialize_field("uptime_s", &report.uptime_s)?;
+        map.serialize_field("sources", &report.sources)?;
+        map.serialize_field("subscribers", &report.subscribers)?;
+        map.serialize_field("accepted", &report.accepted)?;
+        map.serialize_field("rejected", &report.rejected)?;
+        map.serialize_field("dropped", &report.dropped)?;
+        map.serialize_field("epochs", &report.epochs)?;
+        map.end()
+    }
+}
+
+impl<'de> Deserialize<'de> for Status {
+    fn deserialize<D: serde::Deserializer<'de>>(deserializer: D) -> Result<Status, D::Error> {
+        // Every counter optional here; "all or none" is decided below so that a
+        // partial answer is an error naming the first missing counter.
+        #[derive(Deserialize)]
+        struct Keys {
+            uptime_s: Option<f64>,
+            sources: Option<u64>,
+            subscribers: Option<u64>,
+            accepted: Option<u64>,
+            rejected: Option<u64>,
+            dropped: Option<u64>,
+            epochs: Option<u64>,
+        }
+        let k = Keys::deserialize(deserializer)?;
+        let present = [
+            k.uptime_s.is_some(),
+            k.sources.is_some(),
+            k.subscribers.is_some(),
+            k.accepted.is_some(),
+            k.rejected.is_some(),
+            k.dropped.is_some(),
+            k.epochs.is_some(),
+        ];
+        if present.iter().all(|p| !p) {
+            return Ok(Status::request());
+        }
+        if let Some(idx) = present.iter().position(|p| !p) {
+            return Err(serde::de::Error::missing_field(STATUS_KEYS[idx]));
+        }
+        let counter = |v: Option<u64>| v.unwrap_or_default();
+        Ok(Status::answer(StatusReport {
+            uptime_s: k.uptime_s.unwrap_or_default(),
+            sources: counter(k.sources),
+            subscribers: counter(k.subscribers),
+            accepted: counter(k.accepted),
+            rejected: counter(k.rejected),
+            dropped: counter(k.dropped),
+            epochs: counter(k.epochs),
+        }))
+    }
 }
 
 /// Counters carried by a `status` answer, counted since the daemon started.
