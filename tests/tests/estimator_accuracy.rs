@@ -33,6 +33,7 @@ fn static_scene_with_an_outlier_sensor() {
         }
     }
     let share = within as f64 / full.len() as f64;
+    eprintln!("static scene: {} epochs, {share:.4} within 3σ", full.len());
     assert!(share >= 0.99, "{share:.4} of epochs within 3σ");
 
     let sensor_alerts = alert_events(&out, "sensor_inliers");

@@ -41,7 +41,7 @@ fn scripted_inlier_fraction_gives_one_episode_at_the_expected_times() {
     for (i, &fraction) in SCRIPT.iter().enumerate() {
         let epoch = (i as i64 + 1) * 100 * MS;
         let n_bad = ((1.0 - fraction) * 10.0).round() as usize;
-        for slot in 0..10 {
+        for (slot, r) in refs.iter().enumerate() {
             let t = epoch - 90 * MS + slot as i64 * 10 * MS;
             if slot < n_bad {
                 // An outlier: unrelated body and reference directions.
@@ -55,13 +55,12 @@ fn scripted_inlier_fraction_gives_one_episode_at_the_expected_times() {
                 ));
                 seq_bad += 1;
             } else {
-                let r = refs[slot];
                 inputs.push(obs(
                     "good",
                     seq_good,
                     t,
                     noise.perturb(&(truth * r), 1e-3),
-                    r,
+                    *r,
                     1e-3,
                 ));
                 seq_good += 1;

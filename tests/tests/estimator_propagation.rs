@@ -161,6 +161,13 @@ fn slewing_scene_is_consistent_with_rates_and_drifts_without() {
     );
     let within_static =
         without.iter().filter(|e| e.1 <= gate).count() as f64 / without.len().max(1) as f64;
+    eprintln!(
+        "slew: {} epochs with rates, {:.4} within 3σ, median error {m_with:.3e} rad; \
+         without rates {} epochs, {within_static:.3} within 3σ, median {m_without:.3e} rad",
+        with.len(),
+        within,
+        without.len()
+    );
     assert!(
         m_without > 10.0 * m_with,
         "median error with rates {m_with:e}, without {m_without:e}"

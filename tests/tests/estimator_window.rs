@@ -158,6 +158,18 @@ fn sigma_disabled_and_table_rules() {
         })
     };
     est.ingest(no_sigma("sun", 0), &mut out).unwrap(); // configured default σ
+                                                       // The same through the protocol's validation (vectors of any length).
+    let wire = wahbad_protocol::Obs {
+        sensor: "sun".into(),
+        seq: 1,
+        t: 0,
+        b: [0.0, 3.0, 0.0],
+        r: [0.0, 0.0, 0.5],
+        sigma: None,
+        token: None,
+    };
+    let valid = wahbad_protocol::validate_obs(&wire).expect("valid obs");
+    est.ingest(Input::Obs(valid), &mut out).unwrap();
     let err = est.ingest(no_sigma("st", 0), &mut out).unwrap_err();
     assert!(matches!(err, IngestError::NoSigma { .. }), "{err}");
     let err = est.ingest(clean("off", 0, 0, 0), &mut out).unwrap_err();

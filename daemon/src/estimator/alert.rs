@@ -64,7 +64,7 @@ impl LevelAlert {
             return None;
         }
         let since = *self.streak_since.get_or_insert(t);
-        if t - since < self.hold_ns {
+        if t.saturating_sub(since) < self.hold_ns {
             return None;
         }
         self.streak_since = None;
@@ -107,7 +107,7 @@ impl StaleAlert {
 
     /// The clock reached `now`; the sensor was last heard at `last_t`.
     pub fn on_clock(&mut self, now: i64, last_t: i64) -> Option<AlertState> {
-        if !self.raised && now - last_t > self.allowance_ns {
+        if !self.raised && now.saturating_sub(last_t) > self.allowance_ns {
             self.raised = true;
             return Some(AlertState::Raised);
         }

@@ -422,7 +422,7 @@ impl Estimator {
         state.last_seq = Some(seq);
         if let Some(stale) = state.stale.as_mut() {
             if let Some(change) = stale.on_message() {
-                let silence_s = (t - silent_since) as f64 / NS_PER_S;
+                let silence_s = t.saturating_sub(silent_since) as f64 / NS_PER_S;
                 let threshold = stale.allowance_ns() as f64 / NS_PER_S;
                 out.push(Output::Alert(Alert {
                     t,
@@ -449,7 +449,7 @@ impl Estimator {
             .expect("admit checked sigma");
         let too_old = self
             .next_epoch
-            .is_some_and(|e| obs.t <= e - self.checked.span_ns);
+            .is_some_and(|e| obs.t <= e.saturating_sub(self.checked.span_ns));
         if too_old {
             self.stats.dropped_too_old += 1;
         } else {
@@ -475,7 +475,9 @@ impl Estimator {
 
     fn ingest_rate(&mut self, rate: ValidRate, out: &mut Vec<Output>) -> Result<(), IngestError> {
         self.admit(&rate.sensor, rate.seq, rate.t, false, out)?;
-        let cutoff = self.next_epoch.map(|e| e - self.checked.span_ns);
+        let cutoff = self
+            .next_epoch
+            .map(|e| e.saturating_sub(self.checked.span_ns));
         if cutoff.is_some_and(|cutoff| self.rates.is_obsolete(rate.t, cutoff)) {
             self.stats.dropped_too_old += 1;
         } else {
@@ -504,7 +506,7 @@ impl Estimator {
             };
             let last = state.last_t.unwrap_or(start_t);
             if let Some(change) = stale.on_clock(newest, last) {
-                let silence_s = (newest - last) as f64 / NS_PER_S;
+                let silence_s = newest.saturating_sub(last) as f64 / NS_PER_S;
                 let threshold = stale.allowance_ns() as f64 / NS_PER_S;
                 out.push(Output::Alert(Alert {
                     t: newest,
@@ -534,21 +536,22 @@ impl Estimator {
             ..
         } = self.checked;
         while epoch.saturating_add(latency_ns) <= newest {
-            self.obs.prune(epoch - span_ns);
-            self.rates.prune((epoch - span_ns).min(epoch - period_ns));
-            let range = self.obs.range(epoch - span_ns, epoch);
+            self.obs.prune(epoch.saturating_sub(span_ns));
+            self.rates
+                .prune(epoch.saturating_sub(span_ns.max(period_ns)));
+            let range = self.obs.range(epoch.saturating_sub(span_ns), epoch);
             if range.is_empty() {
                 // Empty window: skip to the first epoch that can hold a buffered
                 // observation (all buffered ones are later than `epoch`).
                 self.force_cold = true;
                 epoch = match self.obs.first_t() {
-                    Some(t) => epoch_at_or_after(t, period_ns).max(epoch + period_ns),
+                    Some(t) => epoch_at_or_after(t, period_ns).max(epoch.saturating_add(period_ns)),
                     None => first_open_epoch(newest, period_ns, latency_ns),
                 };
                 continue;
             }
             self.solve_epoch(epoch, range, out);
-            epoch += period_ns;
+            epoch = epoch.saturating_add(period_ns);
         }
         self.next_epoch = Some(epoch);
     }
@@ -560,9 +563,11 @@ impl Estimator {
             gate_k,
             ..
         } = self.checked;
-        let propagated = self.rates.any_in(epoch - span_ns, epoch);
+        let propagated = self.rates.any_in(epoch.saturating_sub(span_ns), epoch);
         // The previous estimate is carried by the rates only from the epoch just before.
-        let consecutive = self.estimate.filter(|e| e.t == epoch - period_ns);
+        let consecutive = self
+            .estimate
+            .filter(|e| e.t == epoch.saturating_sub(period_ns));
         let oldest = self.obs.get(range.start).t;
         if propagated {
             let from = consecutive.map_or(oldest, |e| e.t.min(oldest));
