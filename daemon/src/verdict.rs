@@ -18,7 +18,7 @@
 
 use nalgebra::{Matrix3, UnitQuaternion, Vector3};
 
-use crate::solve::eigen3::symmetric_eigen3;
+use crate::solve::eigen::symmetric_eigen3;
 use crate::solve::Pair;
 
 /// Variance reported on an unobservable axis, rad² (finite so JSON can carry it).

@@ -7,7 +7,7 @@
 //!
 //! Layout:
 //! - [`rotation`]: checked nearest rotation (SVD), shortest arc, quaternion and angle helpers;
-//! - [`eigen3`]: bounded symmetric 3×3 eigen-decomposition (verdict covariance);
+//! - [`eigen`]: bounded symmetric eigen-decomposition (verdict covariance, q-method);
 //! - [`svd`], [`qmethod`]: weighted least squares (Markley's SVD method, Davenport's q-method);
 //! - [`triad`]: the two-vector closed form;
 //! - `lud`, `gnc`, `consensus`, `auto`: the robust methods, each ending with
@@ -24,7 +24,7 @@
 
 mod auto;
 mod consensus;
-pub mod eigen3;
+pub mod eigen;
 mod gnc;
 mod lud;
 pub mod qmethod;
@@ -233,7 +233,7 @@ pub(crate) struct Workspace {
     pub gate_chord2: Vec<f64>,
     /// Iteration weights of the inner least-squares steps.
     pub work_w: Vec<f64>,
-    /// Per-pair scratch values (residuals).
+    /// Per-pair scratch values (GNC: inverse squared gate chords).
     pub resid: Vec<f64>,
     /// Inlier flags of the current refit set.
     pub inl: Vec<bool>,
@@ -246,30 +246,22 @@ impl Workspace {
         self.pairs.clear();
         self.inv_var.clear();
         self.gate_chord2.clear();
+        // Consecutive pairs usually share a σ (one sensor): reuse its gate.
+        let mut last_sigma = f64::NAN;
+        let mut last_gate = 0.0;
         for (index, p) in pairs.iter().enumerate() {
-            let unit = |v: &Vector3<f64>, which: &'static str| {
-                let norm = v.norm();
-                if !v.iter().all(|x| x.is_finite()) || !norm.is_finite() {
-                    return Err(SolveError::InvalidPair {
-                        index,
-                        reason: which,
-                    });
-                }
-                if norm < 1e-150 {
-                    return Err(SolveError::InvalidPair {
-                        index,
-                        reason: "zero vector",
-                    });
-                }
-                Ok(v / norm)
-            };
-            let b = unit(&p.b, "b is not finite")?;
-            let r = unit(&p.r, "r is not finite")?;
+            let b = unit(&p.b).map_err(|reason| SolveError::InvalidPair { index, reason })?;
+            let r = unit(&p.r).map_err(|reason| SolveError::InvalidPair { index, reason })?;
             if !(p.sigma.is_finite() && p.sigma > 0.0) {
                 return Err(SolveError::InvalidPair {
                     index,
                     reason: "sigma must be finite and > 0",
                 });
+            }
+            if p.sigma != last_sigma {
+                let gate = (gate_k * p.sigma).min(std::f64::consts::PI);
+                last_gate = (2.0 * (0.5 * gate).sin()).powi(2);
+                last_sigma = p.sigma;
             }
             self.pairs.push(Pair {
                 b,
@@ -277,13 +269,35 @@ impl Workspace {
                 sigma: p.sigma,
             });
             self.inv_var.push(1.0 / (p.sigma * p.sigma));
-            let gate = (gate_k * p.sigma).min(std::f64::consts::PI);
-            self.gate_chord2.push((2.0 * (0.5 * gate).sin()).powi(2));
+            self.gate_chord2.push(last_gate);
         }
         self.work_w.resize(n, 0.0);
         self.resid.resize(n, 0.0);
         self.inl.resize(n, false);
         Ok(())
+    }
+}
+
+/// `v` normalised, or why it cannot be (non-finite, zero).
+#[inline]
+fn unit(v: &Vector3<f64>) -> Result<Vector3<f64>, &'static str> {
+    let n2 = v.norm_squared();
+    if !n2.is_finite() {
+        if !v.iter().all(|x| x.is_finite()) {
+            return Err("vector is not finite");
+        }
+        // Finite but huge: scale first so the norm does not overflow.
+        let s = v / v.amax();
+        return Ok(s / s.norm());
+    }
+    if n2 < 1e-300 {
+        return Err("zero vector");
+    }
+    // Already unit to rounding: keep it bit-for-bit.
+    if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
+        Ok(*v)
+    } else {
+        Ok(v / n2.sqrt())
     }
 }
 
