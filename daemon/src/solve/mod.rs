@@ -511,3 +511,95 @@ mod tests {
         ));
     }
 }
+
+/// Property tests: proper rotation out, equivariance under a body rotation,
+/// invariance under permutation of the pairs.
+#[cfg(test)]
+mod properties {
+    use super::*;
+    use proptest::prelude::*;
+
+    fn unit_vec() -> impl Strategy<Value = Vector3<f64>> {
+        (-1.0f64..1.0, -1.0f64..1.0, -1.0f64..1.0)
+            .prop_filter("not tiny", |(x, y, z)| x * x + y * y + z * z > 0.01)
+            .prop_map(|(x, y, z)| Vector3::new(x, y, z).normalize())
+    }
+
+    fn rotation() -> impl Strategy<Value = UnitQuaternion<f64>> {
+        (unit_vec(), 0.0f64..std::f64::consts::PI)
+            .prop_map(|(axis, angle)| UnitQuaternion::from_scaled_axis(axis * angle))
+    }
+
+    /// Pairs at attitude `q`: inliers with small deterministic offsets, the
+    /// first `n_out` replaced by arbitrary directions.
+    fn scene() -> impl Strategy<Value = (UnitQuaternion<f64>, Vec<Pair>)> {
+        (
+            rotation(),
+            prop::collection::vec((unit_vec(), unit_vec(), unit_vec()), 6..30),
+            0usize..4,
+        )
+            .prop_map(|(q, raw, n_out)| {
+                let sigma = 1e-3;
+                let pairs = raw
+                    .iter()
+                    .enumerate()
+                    .map(|(i, (r, junk, jitter))| {
+                        let b = if i < n_out {
+                            *junk
+                        } else {
+                            (q * r + jitter * (0.5 * sigma)).normalize()
+                        };
+                        Pair { b, r: *r, sigma }
+                    })
+                    .collect();
+                (q, pairs)
+            })
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(48))]
+
+        #[test]
+        fn output_is_a_proper_rotation((_q, pairs) in scene(), warm in rotation()) {
+            let mut solver = Solver::default();
+            for method in Method::ALL {
+                for w in [None, Some(&warm)] {
+                    let out = solver.solve(&pairs, method, w).unwrap();
+                    let a = out.q.to_rotation_matrix().into_inner();
+                    prop_assert!(rotation::is_rotation(&a));
+                    prop_assert!((out.q.norm() - 1.0).abs() < 1e-12);
+                    prop_assert!(out.q.w >= 0.0);
+                }
+            }
+        }
+
+        #[test]
+        fn rotating_the_body_vectors_rotates_the_answer((_q, pairs) in scene(), turn in rotation()) {
+            let turned: Vec<Pair> = pairs.iter().map(|p| Pair { b: turn * p.b, ..*p }).collect();
+            let mut solver = Solver::default();
+            for method in Method::ALL {
+                let a = solver.solve(&pairs, method, None).unwrap().q;
+                let b = solver.solve(&turned, method, None).unwrap().q;
+                let err = rotation::angle_between(&(turn * a), &b);
+                prop_assert!(err < 1e-9, "{method}: {err:e}");
+            }
+        }
+
+        #[test]
+        fn permuting_the_pairs_changes_nothing((_q, pairs) in scene(), shift in 1usize..5) {
+            // Reversed and rotated order. TRIAD is excluded: it uses the first
+            // two pairs by definition. Consensus is exhaustive at these sizes.
+            let mut permuted = pairs.clone();
+            permuted.reverse();
+            let k = shift % permuted.len();
+            permuted.rotate_left(k);
+            let mut solver = Solver::default();
+            for method in Method::ALL.into_iter().filter(|m| *m != Method::Triad) {
+                let a = solver.solve(&pairs, method, None).unwrap().q;
+                let b = solver.solve(&permuted, method, None).unwrap().q;
+                let err = rotation::angle_between(&a, &b);
+                prop_assert!(err < 1e-9, "{method}: {err:e}");
+            }
+        }
+    }
+}

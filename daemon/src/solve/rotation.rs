@@ -156,7 +156,7 @@ pub fn svd3(b: &Matrix3<f64>) -> Option<Svd3> {
     let (i0, i1, i2) = (idx[0], idx[1], idx[2]);
     let col = |k: usize| Vector3::new(g[k][0], g[k][1], g[k][2]);
     let (s0, s1) = (norms[i0], norms[i1]);
-    if !(s0 > 0.0) {
+    if s0.is_nan() || s0 <= 0.0 {
         return None;
     }
     let u0 = col(i0) / s0;
@@ -322,8 +322,8 @@ mod tests {
             .copied()
             .collect();
         theirs.sort_by(|a, b| b.total_cmp(a));
-        for k in 0..3 {
-            assert!((ours.s[k].abs() - theirs[k]).abs() < 1e-14);
+        for (ours_k, theirs_k) in ours.s.iter().zip(&theirs) {
+            assert!((ours_k.abs() - theirs_k).abs() < 1e-14);
         }
         let back = ours.u * Matrix3::from_diagonal(&ours.s) * ours.v.transpose();
         assert!((back - m).abs().max() < 1e-14);
