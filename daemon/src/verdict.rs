@@ -18,7 +18,7 @@
 
 use nalgebra::{Matrix3, UnitQuaternion, Vector3};
 
-use crate::solve::eigen3::symmetric_eigen3;
+use crate::solve::eigen::symmetric_eigen3;
 use crate::solve::Pair;
 
 /// Variance reported on an unobservable axis, rad² (finite so JSON can carry it).
@@ -138,7 +138,7 @@ fn covariance_of(info: &Matrix3<f64>, n_inliers: usize) -> (Matrix3<f64>, Observ
         return insufficient;
     };
     let (l, e) = (eig.values, eig.vectors);
-    if !(l[2] > 0.0) {
+    if l[2].is_nan() || l[2] <= 0.0 {
         return insufficient;
     }
     let unobservable = l[0] <= OBSERVABILITY_RATIO * l[2];

@@ -5,17 +5,18 @@
 //! Residuals are normalised to the gate: `ρ_i = ‖b_i − A r_i‖² / c_i²` with
 //! `c_i = 2 sin(k σ_i / 2)` the chord of the gate angle `k σ_i`, so the TLS
 //! threshold is exactly the verdict's χ² gate (`c_i ≈ k σ_i` for small σ).
-//! The closed-form TLS weights of the paper, with threshold 1 in these units:
-//! `w = 1` for `ρ ≤ μ/(μ+1)`, `w = √(μ(μ+1)/ρ) − μ` in between,
-//! `w = 0` for `ρ ≥ (μ+1)/μ`. μ starts at `1/(2 ρ_max − 1)` from the largest
-//! residual of the initial estimate (warm start, else least squares) and grows
-//! by `gnc_mu_factor` each step; each step is one weighted least-squares solve
-//! with weights `w_i σ_i⁻²`.
+//! The closed-form TLS weights of the paper (recalled from it), with threshold
+//! 1 in these units: `w = 1` for `ρ ≤ μ/(μ+1)`, `w = √(μ(μ+1)/ρ) − μ` in
+//! between, `w = 0` for `ρ ≥ (μ+1)/μ`. μ starts at `1/(2 ρ_max − 1)` from the
+//! largest residual of the initial estimate (warm start, else least squares)
+//! and grows by `gnc_mu_factor` each step; each step is one weighted
+//! least-squares solve with weights `w_i σ_i⁻²` (one pass over the pairs
+//! computes the residuals, the next weights and their profile matrix).
 //!
 //! Convergence rule (`converged`): the weights are binary (no residual in the
 //! band where `0 < w < 1`), or, once `μ ≥ 1`, the TLS cost `Σ min(ρ_i, 1)`
 //! changes by at most `1e-12·(1 + cost)` between steps. (Below `μ = 1` the
-//! weights are nearly `∝ ρ^{-1/2}` and only their scale changes, so a stalled
+//! weights of the inliers are all fractional and shrink together, so a stalled
 //! cost there does not mean GNC is done.) Otherwise stop at `max_iterations`.
 //! When every residual of the initial estimate is within the gate, it is the
 //! answer (one iteration). The caller then refits on the gate inliers.
@@ -23,23 +24,38 @@
 use nalgebra::Matrix3;
 
 use super::refit::chord2;
+use super::rotation::{nearest_rotation, ProfileSum};
 use super::{svd, Estimate, Method, SolveError, SolveParams, Workspace};
 
-/// Normalised residuals `ρ_i` of `a` into `ws.resid`; returns (max ρ, TLS cost).
-fn residuals(ws: &mut Workspace, a: &Matrix3<f64>) -> (f64, f64) {
-    let mut max = 0.0f64;
-    let mut cost = 0.0;
-    for ((p, &g), rho) in ws
-        .pairs
-        .iter()
-        .zip(&ws.gate_chord2)
-        .zip(ws.resid.iter_mut())
-    {
-        *rho = chord2(a, p) / g;
-        max = max.max(*rho);
-        cost += rho.min(1.0);
+/// The closed-form TLS weight of normalised residual `rho` at `mu`, and
+/// whether it is fractional; `lower = μ/(μ+1)`, `upper = (μ+1)/μ`, `mm = μ(μ+1)`.
+#[inline]
+fn tls_weight(rho: f64, mu: f64, lower: f64, upper: f64, mm: f64) -> (f64, bool) {
+    if rho <= lower {
+        (1.0, false)
+    } else if rho >= upper {
+        (0.0, false)
+    } else {
+        (((mm / rho).sqrt() - mu).clamp(0.0, 1.0), true)
     }
-    (max, cost)
+}
+
+/// One pass at `a`: TLS cost, and the profile matrix and fractional-weight count of the weights at `mu`.
+fn pass(ws: &Workspace, a: &Matrix3<f64>, mu: f64) -> (f64, Matrix3<f64>, usize) {
+    let mut cost = 0.0;
+    let mut n_band = 0;
+    let mut sum = ProfileSum::default();
+    let (lower, upper, mm) = (mu / (mu + 1.0), (mu + 1.0) / mu, mu * (mu + 1.0));
+    for ((p, &inv_g), &iv) in ws.pairs.iter().zip(&ws.resid).zip(&ws.inv_var) {
+        let rho = chord2(a, p) * inv_g;
+        cost += rho.min(1.0);
+        let (u, fractional) = tls_weight(rho, mu, lower, upper, mm);
+        n_band += usize::from(fractional);
+        if u > 0.0 {
+            sum.add(u * iv, &p.b, &p.r);
+        }
+    }
+    (cost, sum.matrix(), n_band)
 }
 
 /// GNC-TLS from `warm` (or least squares).
@@ -52,7 +68,16 @@ pub(crate) fn solve(
         Some(a) => a,
         None => svd::weighted_ls(&ws.pairs, &ws.inv_var)?,
     };
-    let (rho_max, mut cost) = residuals(ws, &a);
+    // `resid` holds the inverse squared gate chords `1/c_i²` during GNC.
+    for (inv_g, &g) in ws.resid.iter_mut().zip(&ws.gate_chord2) {
+        *inv_g = 1.0 / g;
+    }
+    let rho_max = ws
+        .pairs
+        .iter()
+        .zip(&ws.resid)
+        .map(|(p, &inv_g)| chord2(&a, p) * inv_g)
+        .fold(0.0f64, f64::max);
     if rho_max <= 1.0 {
         return Ok(Estimate {
             a,
@@ -62,39 +87,26 @@ pub(crate) fn solve(
         });
     }
     let mut mu = 1.0 / (2.0 * rho_max - 1.0);
+    let (mut cost, mut profile, mut n_band) = pass(ws, &a, mu);
     let mut iterations = 0;
     let mut converged = false;
     while iterations < params.max_iterations {
-        let lower = mu / (mu + 1.0);
-        let upper = (mu + 1.0) / mu;
-        let mut n_band = 0usize;
-        for ((rho, w), &iv) in ws.resid.iter().zip(ws.work_w.iter_mut()).zip(&ws.inv_var) {
-            let u = if *rho <= lower {
-                1.0
-            } else if *rho >= upper {
-                0.0
-            } else {
-                n_band += 1;
-                ((mu * (mu + 1.0) / rho).sqrt() - mu).clamp(0.0, 1.0)
-            };
-            *w = u * iv;
-        }
-        let Ok(a_new) = svd::weighted_ls(&ws.pairs, &ws.work_w) else {
+        let Ok(a_new) = nearest_rotation(&profile) else {
             break;
         };
         iterations += 1;
         a = a_new;
-        let (_, cost_new) = residuals(ws, &a);
         if n_band == 0 {
             converged = true;
             break;
         }
+        let mu_next = mu * params.gnc_mu_factor;
+        let (cost_new, profile_new, band_new) = pass(ws, &a, mu_next);
         if mu >= 1.0 && (cost_new - cost).abs() <= 1e-12 * (1.0 + cost) {
             converged = true;
             break;
         }
-        cost = cost_new;
-        mu *= params.gnc_mu_factor;
+        (cost, profile, n_band, mu) = (cost_new, profile_new, band_new, mu_next);
     }
     Ok(Estimate {
         a,

@@ -13,7 +13,8 @@
 
 use nalgebra::Matrix3;
 
-use super::rotation::angle_between_matrices;
+use super::refit::chord2;
+use super::rotation::{angle_between_matrices, nearest_rotation, ProfileSum};
 use super::{svd, Estimate, Method, SolveError, SolveParams, Workspace};
 
 /// Residual floor, in units of the pair's σ.
@@ -40,11 +41,12 @@ pub(crate) fn solve(
     let mut iterations = 0;
     let mut converged = false;
     while iterations < params.max_iterations {
-        for (p, w) in ws.pairs.iter().zip(ws.work_w.iter_mut()) {
-            let e = (p.b - a * p.r).norm();
-            *w = 1.0 / (p.sigma * e.max(LUD_FLOOR * p.sigma));
+        let mut sum = ProfileSum::default();
+        for p in &ws.pairs {
+            let e = chord2(&a, p).sqrt();
+            sum.add(1.0 / (p.sigma * e.max(LUD_FLOOR * p.sigma)), &p.b, &p.r);
         }
-        let Ok(a_new) = svd::weighted_ls(&ws.pairs, &ws.work_w) else {
+        let Ok(a_new) = nearest_rotation(&sum.matrix()) else {
             break;
         };
         iterations += 1;

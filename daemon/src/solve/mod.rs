@@ -7,7 +7,7 @@
 //!
 //! Layout:
 //! - [`rotation`]: checked nearest rotation (SVD), shortest arc, quaternion and angle helpers;
-//! - [`eigen3`]: bounded symmetric 3×3 eigen-decomposition (verdict covariance);
+//! - [`eigen`]: bounded symmetric eigen-decomposition (verdict covariance, q-method);
 //! - [`svd`], [`qmethod`]: weighted least squares (Markley's SVD method, Davenport's q-method);
 //! - [`triad`]: the two-vector closed form;
 //! - `lud`, `gnc`, `consensus`, `auto`: the robust methods, each ending with
@@ -24,7 +24,7 @@
 
 mod auto;
 mod consensus;
-pub mod eigen3;
+pub mod eigen;
 mod gnc;
 mod lud;
 pub mod qmethod;
@@ -233,7 +233,7 @@ pub(crate) struct Workspace {
     pub gate_chord2: Vec<f64>,
     /// Iteration weights of the inner least-squares steps.
     pub work_w: Vec<f64>,
-    /// Per-pair scratch values (residuals).
+    /// Per-pair scratch values (GNC: inverse squared gate chords).
     pub resid: Vec<f64>,
     /// Inlier flags of the current refit set.
     pub inl: Vec<bool>,
@@ -246,30 +246,22 @@ impl Workspace {
         self.pairs.clear();
         self.inv_var.clear();
         self.gate_chord2.clear();
+        // Consecutive pairs usually share a σ (one sensor): reuse its gate.
+        let mut last_sigma = f64::NAN;
+        let mut last_gate = 0.0;
         for (index, p) in pairs.iter().enumerate() {
-            let unit = |v: &Vector3<f64>, which: &'static str| {
-                let norm = v.norm();
-                if !v.iter().all(|x| x.is_finite()) || !norm.is_finite() {
-                    return Err(SolveError::InvalidPair {
-                        index,
-                        reason: which,
-                    });
-                }
-                if norm < 1e-150 {
-                    return Err(SolveError::InvalidPair {
-                        index,
-                        reason: "zero vector",
-                    });
-                }
-                Ok(v / norm)
-            };
-            let b = unit(&p.b, "b is not finite")?;
-            let r = unit(&p.r, "r is not finite")?;
+            let b = unit(&p.b).map_err(|reason| SolveError::InvalidPair { index, reason })?;
+            let r = unit(&p.r).map_err(|reason| SolveError::InvalidPair { index, reason })?;
             if !(p.sigma.is_finite() && p.sigma > 0.0) {
                 return Err(SolveError::InvalidPair {
                     index,
                     reason: "sigma must be finite and > 0",
                 });
+            }
+            if p.sigma != last_sigma {
+                let gate = (gate_k * p.sigma).min(std::f64::consts::PI);
+                last_gate = (2.0 * (0.5 * gate).sin()).powi(2);
+                last_sigma = p.sigma;
             }
             self.pairs.push(Pair {
                 b,
@@ -277,13 +269,35 @@ impl Workspace {
                 sigma: p.sigma,
             });
             self.inv_var.push(1.0 / (p.sigma * p.sigma));
-            let gate = (gate_k * p.sigma).min(std::f64::consts::PI);
-            self.gate_chord2.push((2.0 * (0.5 * gate).sin()).powi(2));
+            self.gate_chord2.push(last_gate);
         }
         self.work_w.resize(n, 0.0);
         self.resid.resize(n, 0.0);
         self.inl.resize(n, false);
         Ok(())
+    }
+}
+
+/// `v` normalised, or why it cannot be (non-finite, zero).
+#[inline]
+fn unit(v: &Vector3<f64>) -> Result<Vector3<f64>, &'static str> {
+    let n2 = v.norm_squared();
+    if !n2.is_finite() {
+        if !v.iter().all(|x| x.is_finite()) {
+            return Err("vector is not finite");
+        }
+        // Finite but huge: scale first so the norm does not overflow.
+        let s = v / v.amax();
+        return Ok(s / s.norm());
+    }
+    if n2 < 1e-300 {
+        return Err("zero vector");
+    }
+    // Already unit to rounding: keep it bit-for-bit.
+    if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
+        Ok(*v)
+    } else {
+        Ok(v / n2.sqrt())
     }
 }
 
@@ -495,5 +509,97 @@ mod tests {
             solver.solve(&[good], Method::Auto, None),
             Err(SolveError::Insufficient { n: 1, needed: 2 })
         ));
+    }
+}
+
+/// Property tests: proper rotation out, equivariance under a body rotation,
+/// invariance under permutation of the pairs.
+#[cfg(test)]
+mod properties {
+    use super::*;
+    use proptest::prelude::*;
+
+    fn unit_vec() -> impl Strategy<Value = Vector3<f64>> {
+        (-1.0f64..1.0, -1.0f64..1.0, -1.0f64..1.0)
+            .prop_filter("not tiny", |(x, y, z)| x * x + y * y + z * z > 0.01)
+            .prop_map(|(x, y, z)| Vector3::new(x, y, z).normalize())
+    }
+
+    fn rotation() -> impl Strategy<Value = UnitQuaternion<f64>> {
+        (unit_vec(), 0.0f64..std::f64::consts::PI)
+            .prop_map(|(axis, angle)| UnitQuaternion::from_scaled_axis(axis * angle))
+    }
+
+    /// Pairs at attitude `q`: inliers with small deterministic offsets, the
+    /// first `n_out` replaced by arbitrary directions.
+    fn scene() -> impl Strategy<Value = (UnitQuaternion<f64>, Vec<Pair>)> {
+        (
+            rotation(),
+            prop::collection::vec((unit_vec(), unit_vec(), unit_vec()), 6..30),
+            0usize..4,
+        )
+            .prop_map(|(q, raw, n_out)| {
+                let sigma = 1e-3;
+                let pairs = raw
+                    .iter()
+                    .enumerate()
+                    .map(|(i, (r, junk, jitter))| {
+                        let b = if i < n_out {
+                            *junk
+                        } else {
+                            (q * r + jitter * (0.5 * sigma)).normalize()
+                        };
+                        Pair { b, r: *r, sigma }
+                    })
+                    .collect();
+                (q, pairs)
+            })
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(48))]
+
+        #[test]
+        fn output_is_a_proper_rotation((_q, pairs) in scene(), warm in rotation()) {
+            let mut solver = Solver::default();
+            for method in Method::ALL {
+                for w in [None, Some(&warm)] {
+                    let out = solver.solve(&pairs, method, w).unwrap();
+                    let a = out.q.to_rotation_matrix().into_inner();
+                    prop_assert!(rotation::is_rotation(&a));
+                    prop_assert!((out.q.norm() - 1.0).abs() < 1e-12);
+                    prop_assert!(out.q.w >= 0.0);
+                }
+            }
+        }
+
+        #[test]
+        fn rotating_the_body_vectors_rotates_the_answer((_q, pairs) in scene(), turn in rotation()) {
+            let turned: Vec<Pair> = pairs.iter().map(|p| Pair { b: turn * p.b, ..*p }).collect();
+            let mut solver = Solver::default();
+            for method in Method::ALL {
+                let a = solver.solve(&pairs, method, None).unwrap().q;
+                let b = solver.solve(&turned, method, None).unwrap().q;
+                let err = rotation::angle_between(&(turn * a), &b);
+                prop_assert!(err < 1e-9, "{method}: {err:e}");
+            }
+        }
+
+        #[test]
+        fn permuting_the_pairs_changes_nothing((_q, pairs) in scene(), shift in 1usize..5) {
+            // Reversed and rotated order. TRIAD is excluded: it uses the first
+            // two pairs by definition. Consensus is exhaustive at these sizes.
+            let mut permuted = pairs.clone();
+            permuted.reverse();
+            let k = shift % permuted.len();
+            permuted.rotate_left(k);
+            let mut solver = Solver::default();
+            for method in Method::ALL.into_iter().filter(|m| *m != Method::Triad) {
+                let a = solver.solve(&pairs, method, None).unwrap().q;
+                let b = solver.solve(&permuted, method, None).unwrap().q;
+                let err = rotation::angle_between(&a, &b);
+                prop_assert!(err < 1e-9, "{method}: {err:e}");
+            }
+        }
     }
 }

@@ -10,17 +10,17 @@
 //! transpose convention).
 //!
 //! Convergence rule: closed form (one iteration). The symmetric eigen-solver
-//! runs with a bounded iteration count; its result is checked (finite,
-//! orthonormal eigenvectors, small recomposition residual). When the gap
+//! ([`super::eigen`], cyclic Jacobi) runs with a bounded sweep count; its
+//! result is checked (finite, orthonormal eigenvectors, small recomposition
+//! residual). When the gap
 //! between the two largest eigenvalues is below
 //! [`super::rotation::DEGENERACY_RATIO`] times the largest, the rotation is not
 //! unique and the result is the same shortest-arc rotation as the SVD method.
 
 use nalgebra::{Matrix3, Matrix4, Quaternion, UnitQuaternion};
 
-use super::rotation::{
-    attitude_profile, is_rotation, nearest_rotation, DECOMPOSITION_MAX_ITER, DEGENERACY_RATIO,
-};
+use super::eigen::symmetric_eigen;
+use super::rotation::{attitude_profile, is_rotation, nearest_rotation, DEGENERACY_RATIO};
 use super::{Pair, SolveError};
 
 /// Davenport's `K` for the Hamilton ordering `[w, x, y, z]`.
@@ -59,35 +59,15 @@ pub fn weighted_ls(pairs: &[Pair], weights: &[f64]) -> Result<Matrix3<f64>, Solv
         ));
     }
     let k = davenport_k(&(b / scale));
-    let eig = k
-        .try_symmetric_eigen(f64::EPSILON, DECOMPOSITION_MAX_ITER)
-        .ok_or_else(|| SolveError::Numerical("eigen-decomposition did not converge".into()))?;
-    let vals = eig.eigenvalues;
-    let vecs = eig.eigenvectors;
-    if !vals.iter().chain(vecs.iter()).all(|x| x.is_finite()) {
-        return Err(SolveError::Numerical(
-            "eigen-decomposition is not finite".into(),
-        ));
-    }
-    if (vecs.transpose() * vecs - Matrix4::identity()).abs().max() > 1e-9 {
-        return Err(SolveError::Numerical(
-            "eigenvectors are not orthonormal".into(),
-        ));
-    }
-    let recomposed = vecs * Matrix4::from_diagonal(&vals) * vecs.transpose();
-    if (recomposed - k).abs().max() > 1e-9 {
-        return Err(SolveError::Numerical(
-            "eigen-decomposition does not recompose K".into(),
-        ));
-    }
-    let mut idx = [0usize, 1, 2, 3];
-    idx.sort_by(|&i, &j| vals[j].total_cmp(&vals[i]));
-    let (l1, l2) = (vals[idx[0]], vals[idx[1]]);
+    let (vals, vecs) = symmetric_eigen(&k)
+        .ok_or_else(|| SolveError::Numerical("eigen-decomposition failed its checks".into()))?;
+    // Ascending order: the largest eigenvalue is last.
+    let (l1, l2) = (vals[3], vals[2]);
     // Gap λ1 − λ2 = 2(s2 ± s3) and λ1 = s1 + s2 ± s3 in the singular values of B.
     if 0.5 * (l1 - l2) <= DEGENERACY_RATIO * l1.abs().max(f64::MIN_POSITIVE) {
         return nearest_rotation(&b);
     }
-    let v = vecs.column(idx[0]);
+    let v = vecs.column(3);
     let q = UnitQuaternion::from_quaternion(Quaternion::new(v[0], v[1], v[2], v[3]));
     let a = q.to_rotation_matrix().into_inner();
     if !is_rotation(&a) {

@@ -12,7 +12,8 @@
 
 use nalgebra::Matrix3;
 
-use super::{svd, Estimate, Pair, Workspace};
+use super::rotation::{nearest_rotation, ProfileSum};
+use super::{Estimate, Pair, Workspace};
 
 /// Refit passes at most.
 pub const REFIT_MAX_PASSES: u32 = 5;
@@ -62,7 +63,8 @@ pub(crate) fn better(count: usize, cost: f64, best_count: usize, best_cost: f64)
     count > best_count || (count == best_count && cost < best_cost)
 }
 
-/// Gates at `a` into `weights`/`inl`; returns (inliers, whether the set changed, cost).
+/// Gates at `a` into `weights`/`inl`; returns (inliers, whether the set
+/// changed, cost, profile matrix of the set).
 fn gate(
     pairs: &[Pair],
     inv_var: &[f64],
@@ -70,12 +72,14 @@ fn gate(
     a: &Matrix3<f64>,
     weights: &mut [f64],
     inl: &mut [bool],
-) -> (usize, bool, f64) {
+) -> (usize, bool, f64, Matrix3<f64>) {
     let mut count = 0;
     let mut changed = false;
     let mut cost = 0.0;
+    let mut sum = ProfileSum::default();
     for i in 0..pairs.len() {
-        let e2 = chord2(a, &pairs[i]);
+        let p = &pairs[i];
+        let e2 = chord2(a, p);
         let is_in = e2 <= gate_chord2[i];
         changed |= is_in != inl[i];
         inl[i] = is_in;
@@ -83,11 +87,12 @@ fn gate(
             count += 1;
             cost += e2 * inv_var[i];
             weights[i] = inv_var[i];
+            sum.add(inv_var[i], &p.b, &p.r);
         } else {
             weights[i] = 0.0;
         }
     }
-    (count, changed, cost)
+    (count, changed, cost, sum.matrix())
 }
 
 /// Refits from `a0` on the gate inliers (see the module doc for the rule).
@@ -102,18 +107,20 @@ pub(crate) fn refit(
     max_passes: u32,
 ) -> Refit {
     let mut a = a0;
-    let (mut n_in, _, mut cost) = gate(pairs, inv_var, gate_chord2, &a, weights, inl);
+    let (mut n_in, _, mut cost, mut profile) = gate(pairs, inv_var, gate_chord2, &a, weights, inl);
     let mut passes = 0;
     let mut stable = false;
     while n_in >= 2 && passes < max_passes {
-        let Ok(a_new) = svd::weighted_ls(pairs, weights) else {
+        let Ok(a_new) = nearest_rotation(&profile) else {
             break;
         };
         passes += 1;
-        let (n_new, changed, cost_new) = gate(pairs, inv_var, gate_chord2, &a_new, weights, inl);
+        let (n_new, changed, cost_new, profile_new) =
+            gate(pairs, inv_var, gate_chord2, &a_new, weights, inl);
         a = a_new;
         n_in = n_new;
         cost = cost_new;
+        profile = profile_new;
         if !changed {
             stable = true;
             break;
@@ -121,7 +128,7 @@ pub(crate) fn refit(
     }
     if !stable && passes > 0 && n_in >= 2 {
         // The cap was hit with a changed set: fit once more so `a` matches `weights`.
-        if let Ok(a_new) = svd::weighted_ls(pairs, weights) {
+        if let Ok(a_new) = nearest_rotation(&profile) {
             a = a_new;
             passes += 1;
             cost = score(pairs, inv_var, gate_chord2, &a).1;

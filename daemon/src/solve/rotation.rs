@@ -17,27 +17,47 @@ use super::{Pair, SolveError};
 /// `Σ w_i (I − b_i b_iᵀ)`, the same test [`crate::verdict`] applies.
 pub const DEGENERACY_RATIO: f64 = 1e-10;
 
-/// Iteration cap handed to the SVD and eigen routines (bounded work on outside data).
-pub(crate) const DECOMPOSITION_MAX_ITER: usize = 200;
-
 /// Tolerance of the orthonormality and recomposition checks, relative.
 const CHECK_TOL: f64 = 1e-9;
 
+/// Running sum `Σ w_i b_i r_iᵀ` (the attitude profile matrix), row-major.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct ProfileSum {
+    m: [f64; 9],
+}
+
+impl ProfileSum {
+    /// Adds `w b rᵀ`.
+    #[inline]
+    pub fn add(&mut self, w: f64, b: &Vector3<f64>, r: &Vector3<f64>) {
+        let (b0, b1, b2) = (w * b.x, w * b.y, w * b.z);
+        let m = &mut self.m;
+        m[0] += b0 * r.x;
+        m[1] += b0 * r.y;
+        m[2] += b0 * r.z;
+        m[3] += b1 * r.x;
+        m[4] += b1 * r.y;
+        m[5] += b1 * r.z;
+        m[6] += b2 * r.x;
+        m[7] += b2 * r.y;
+        m[8] += b2 * r.z;
+    }
+
+    /// The matrix `B`.
+    pub fn matrix(&self) -> Matrix3<f64> {
+        Matrix3::from_row_slice(&self.m)
+    }
+}
+
 /// `B = Σ w_i b_i r_iᵀ`, Davenport's and Markley's attitude profile matrix.
 pub fn attitude_profile(pairs: &[Pair], weights: &[f64]) -> Matrix3<f64> {
-    let mut m = [0.0f64; 9];
+    let mut sum = ProfileSum::default();
     for (p, &w) in pairs.iter().zip(weights) {
-        if w == 0.0 {
-            continue;
-        }
-        let wb = p.b * w;
-        for row in 0..3 {
-            for col in 0..3 {
-                m[row * 3 + col] += wb[row] * p.r[col];
-            }
+        if w != 0.0 {
+            sum.add(w, &p.b, &p.r);
         }
     }
-    Matrix3::from_row_slice(&m)
+    sum.matrix()
 }
 
 /// Largest deviation of `m mᵀ` from the identity.
@@ -52,8 +72,130 @@ pub(crate) fn is_rotation(m: &Matrix3<f64>) -> bool {
         && (m.determinant() - 1.0).abs() <= CHECK_TOL
 }
 
+/// Sweep cap of the one-sided Jacobi SVD (3×3 converges in a handful).
+const SVD_MAX_SWEEPS: usize = 40;
+
+/// SVD of a 3×3 matrix, `B = U diag(s) Vᵀ` with `det U = +1`,
+/// `s₀ ≥ s₁ ≥ |s₂|` (the last one signed so that `U` is proper).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Svd3 {
+    /// Left singular vectors (columns), a proper rotation.
+    pub u: Matrix3<f64>,
+    /// Singular values, descending in magnitude; the last may be negative.
+    pub s: Vector3<f64>,
+    /// Right singular vectors (columns), orthogonal.
+    pub v: Matrix3<f64>,
+}
+
+#[inline]
+fn dot3(a: &[f64; 3], b: &[f64; 3]) -> f64 {
+    a[0] * b[0] + a[1] * b[1] + a[2] * b[2]
+}
+
+/// SVD by one-sided (Hestenes) Jacobi: plane rotations on the right
+/// orthogonalise the columns of `B`, `B V = G`, then `s_k = |g_k|`,
+/// `u_k = g_k / s_k`. Bounded: at most `SVD_MAX_SWEEPS` sweeps, stopping when
+/// a sweep makes no rotation (every column pair orthogonal to `ε` relative).
+/// The third left vector is `u₀ × u₁` (exactly orthonormal even when `s₂ ≈ 0`).
+/// `None` when the input is not finite, is zero, or a check fails.
+pub fn svd3(b: &Matrix3<f64>) -> Option<Svd3> {
+    let scale = b.abs().max();
+    if !scale.is_finite() || scale <= f64::MIN_POSITIVE {
+        return None;
+    }
+    let mut g = [[0.0f64; 3]; 3];
+    for (k, col) in g.iter_mut().enumerate() {
+        for (row, x) in col.iter_mut().enumerate() {
+            *x = b[(row, k)] / scale;
+        }
+    }
+    let mut v = [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]];
+    let mut converged = false;
+    for _ in 0..SVD_MAX_SWEEPS {
+        let mut rotated = false;
+        for (p, q) in [(0usize, 1usize), (0, 2), (1, 2)] {
+            let alpha = dot3(&g[p], &g[p]);
+            let beta = dot3(&g[q], &g[q]);
+            let gamma = dot3(&g[p], &g[q]);
+            if gamma == 0.0 || gamma.abs() <= f64::EPSILON * (alpha * beta).sqrt() {
+                continue;
+            }
+            rotated = true;
+            let zeta = (beta - alpha) / (2.0 * gamma);
+            let t = if zeta.abs() > 1e150 {
+                0.5 / zeta
+            } else {
+                zeta.signum() / (zeta.abs() + (1.0 + zeta * zeta).sqrt())
+            };
+            let c = 1.0 / (1.0 + t * t).sqrt();
+            let s = c * t;
+            for k in 0..3 {
+                let (gp, gq) = (g[p][k], g[q][k]);
+                g[p][k] = c * gp - s * gq;
+                g[q][k] = s * gp + c * gq;
+                let (vp, vq) = (v[p][k], v[q][k]);
+                v[p][k] = c * vp - s * vq;
+                v[q][k] = s * vp + c * vq;
+            }
+        }
+        if !rotated {
+            converged = true;
+            break;
+        }
+    }
+    if !converged {
+        return None;
+    }
+    let norms = [
+        dot3(&g[0], &g[0]).sqrt(),
+        dot3(&g[1], &g[1]).sqrt(),
+        dot3(&g[2], &g[2]).sqrt(),
+    ];
+    let mut idx = [0usize, 1, 2];
+    idx.sort_by(|&i, &j| norms[j].total_cmp(&norms[i]));
+    let (i0, i1, i2) = (idx[0], idx[1], idx[2]);
+    let col = |k: usize| Vector3::new(g[k][0], g[k][1], g[k][2]);
+    let (s0, s1) = (norms[i0], norms[i1]);
+    if s0.is_nan() || s0 <= 0.0 {
+        return None;
+    }
+    let u0 = col(i0) / s0;
+    let u1 = if s1 > 1e-300 {
+        let w = col(i1) / s1;
+        let w = w - u0 * u0.dot(&w);
+        let n = w.norm();
+        if n > 0.5 {
+            w / n
+        } else {
+            any_perpendicular(&u0)
+        }
+    } else {
+        any_perpendicular(&u0)
+    };
+    let u2 = u0.cross(&u1);
+    let s2 = u2.dot(&col(i2));
+    let u = Matrix3::from_columns(&[u0, u1, u2]);
+    let vcol = |k: usize| Vector3::new(v[k][0], v[k][1], v[k][2]);
+    let vm = Matrix3::from_columns(&[vcol(i0), vcol(i1), vcol(i2)]);
+    let s = Vector3::new(s0, s1, s2) * scale;
+    let finite = u
+        .iter()
+        .chain(vm.iter())
+        .chain(s.iter())
+        .all(|x| x.is_finite());
+    if !finite || orthonormality_error(&u) > CHECK_TOL || orthonormality_error(&vm) > CHECK_TOL {
+        return None;
+    }
+    let recomposed = u * Matrix3::from_diagonal(&s) * vm.transpose();
+    if (recomposed - b).abs().max() > CHECK_TOL * scale {
+        return None;
+    }
+    Some(Svd3 { u, s, v: vm })
+}
+
 /// The proper rotation `A` maximising `tr(A Bᵀ)` (Markley's SVD method):
-/// `A = U diag(1, 1, det U · det V) Vᵀ`, the sign on the smallest singular value.
+/// `A = U diag(1, 1, det U · det V) Vᵀ`, the sign on the smallest singular
+/// value (here `det U = +1` by construction of [`svd3`]).
 ///
 /// When `B` has rank at most one by the [`DEGENERACY_RATIO`] test, the
 /// rotation about the dominant direction is undetermined; the result is then
@@ -72,53 +214,15 @@ pub fn nearest_rotation(b: &Matrix3<f64>) -> Result<Matrix3<f64>, SolveError> {
             "attitude profile matrix vanishes: the weighted pairs cancel".into(),
         ));
     }
-    let bn = b / scale;
-    let svd = bn
-        .try_svd(true, true, f64::EPSILON, DECOMPOSITION_MAX_ITER)
-        .ok_or_else(|| SolveError::Numerical("SVD did not converge".into()))?;
-    let (u, vt) = match (svd.u, svd.v_t) {
-        (Some(u), Some(vt)) => (u, vt),
-        _ => {
-            return Err(SolveError::Numerical(
-                "SVD returned no singular vectors".into(),
-            ))
-        }
-    };
-    let s = svd.singular_values;
-    let finite = u
-        .iter()
-        .chain(vt.iter())
-        .chain(s.iter())
-        .all(|x| x.is_finite());
-    if !finite || s.iter().any(|&x| x < 0.0) {
-        return Err(SolveError::Numerical(
-            "SVD returned non-finite or negative values".into(),
-        ));
-    }
-    if orthonormality_error(&u) > CHECK_TOL || orthonormality_error(&vt) > CHECK_TOL {
-        return Err(SolveError::Numerical(
-            "SVD factors are not orthonormal".into(),
-        ));
-    }
-    let recomposed = u * Matrix3::from_diagonal(&s) * vt;
-    if (recomposed - bn).abs().max() > CHECK_TOL {
-        return Err(SolveError::Numerical(
-            "SVD does not recompose the matrix".into(),
-        ));
-    }
-    // Order the singular values ourselves rather than rely on the library's sort.
-    let mut idx = [0usize, 1, 2];
-    idx.sort_by(|&i, &j| s[j].total_cmp(&s[i]));
-    let (i1, i2, i3) = (idx[0], idx[1], idx[2]);
-    if s[i2] + s[i3] <= DEGENERACY_RATIO * (s[i1] + s[i2]) {
-        let to: Vector3<f64> = u.column(i1).into_owned();
-        let from: Vector3<f64> = vt.row(i1).transpose();
+    let svd = svd3(b).ok_or_else(|| SolveError::Numerical("SVD failed its checks".into()))?;
+    let (s, u, v) = (svd.s, svd.u, svd.v);
+    if s[1] + s[2].abs() <= DEGENERACY_RATIO * (s[0] + s[1]) {
+        let to: Vector3<f64> = u.column(0).into_owned();
+        let from: Vector3<f64> = v.column(0).into_owned();
         return Ok(shortest_arc(&from, &to));
     }
-    let d = (u.determinant() * vt.determinant()).signum();
-    let mut diag = Vector3::new(1.0, 1.0, 1.0);
-    diag[i3] = d;
-    let a = u * Matrix3::from_diagonal(&diag) * vt;
+    let d = v.determinant().signum();
+    let a = u * Matrix3::from_diagonal(&Vector3::new(1.0, 1.0, d)) * v.transpose();
     if !is_rotation(&a) {
         return Err(SolveError::Numerical(
             "nearest rotation is not a proper rotation".into(),
@@ -205,6 +309,25 @@ mod tests {
         let diag = Matrix3::from_diagonal(&Vector3::new(3.0, 2.0, 0.5));
         let got = nearest_rotation(&(a * diag)).unwrap();
         assert!(angle_between_matrices(&a, &got) < 1e-14);
+    }
+
+    #[test]
+    fn svd3_matches_nalgebra_singular_values() {
+        let m = Matrix3::new(0.3, -1.2, 2.0, 0.7, 0.1, -0.4, 1.5, 0.9, 0.2);
+        let ours = svd3(&m).unwrap();
+        let mut theirs: Vec<f64> = m
+            .svd(false, false)
+            .singular_values
+            .iter()
+            .copied()
+            .collect();
+        theirs.sort_by(|a, b| b.total_cmp(a));
+        for (ours_k, theirs_k) in ours.s.iter().zip(&theirs) {
+            assert!((ours_k.abs() - theirs_k).abs() < 1e-14);
+        }
+        let back = ours.u * Matrix3::from_diagonal(&ours.s) * ours.v.transpose();
+        assert!((back - m).abs().max() < 1e-14);
+        assert!((ours.u.determinant() - 1.0).abs() < 1e-14);
     }
 
     #[test]
