@@ -33,13 +33,7 @@ enum Command {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
-    tracing_subscriber::fmt()
-        .with_env_filter(
-            tracing_subscriber::EnvFilter::try_from_default_env()
-                .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("warn")),
-        )
-        .with_writer(std::io::stderr)
-        .init();
+    init_logging(&cli.command);
     let result = match &cli.command {
         Command::ProtocolVersion => {
             println!("{}", wahbad_protocol::PROTOCOL_VERSION);
@@ -54,4 +48,23 @@ fn main() -> ExitCode {
         Ok(()) => ExitCode::SUCCESS,
         Err(failure) => failure.report(),
     }
+}
+
+/// Logs go to stderr; `RUST_LOG` overrides the default level, which is `info`
+/// for the long-running daemon (its connection and alert lines) and `warn`
+/// for the one-shot commands. Colour only when stderr is a terminal.
+fn init_logging(command: &Command) {
+    use std::io::IsTerminal;
+    let default_level = match command {
+        Command::Serve(_) => "info",
+        _ => "warn",
+    };
+    tracing_subscriber::fmt()
+        .with_env_filter(
+            tracing_subscriber::EnvFilter::try_from_default_env()
+                .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(default_level)),
+        )
+        .with_ansi(std::io::stderr().is_terminal())
+        .with_writer(std::io::stderr)
+        .init();
 }
