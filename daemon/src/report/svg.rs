@@ -222,7 +222,9 @@ impl Scale {
             }
             Scale::Unit => value,
         };
-        y0 + h * (1.0 - u.clamp(0.0, 1.0))
+        // A NaN (e.g. an unset level) sits on the axis rather than in the file.
+        let u = if u.is_nan() { 0.0 } else { u.clamp(0.0, 1.0) };
+        y0 + h * (1.0 - u)
     }
 }
 
@@ -837,6 +839,16 @@ mod tests {
             log_scale([100.0].into_iter()),
             Scale::Log { lo: 2, hi: 3 }
         ));
+    }
+
+    #[test]
+    fn coordinates_are_always_numbers() {
+        assert_eq!(Scale::Unit.y(10.0, 100.0, f64::NAN), 110.0);
+        assert_eq!(Scale::Unit.y(10.0, 100.0, 2.0), 10.0);
+        let log = Scale::Log { lo: 0, hi: 2 };
+        assert_eq!(log.y(0.0, 100.0, -5.0), 100.0);
+        assert_eq!(log.y(0.0, 100.0, f64::INFINITY), 0.0);
+        assert_eq!(log.y(0.0, 100.0, 10.0), 50.0);
     }
 
     #[test]
