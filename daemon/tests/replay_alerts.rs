@@ -33,11 +33,24 @@ fn false_stars_raise_an_alert_and_fail_on_alert_exits_1() {
 
     let json: serde_json::Value =
         serde_json::from_slice(&std::fs::read(&summary).unwrap()).unwrap();
-    let mut keys: Vec<&str> = json.as_object().unwrap().keys().map(String::as_str).collect();
+    let mut keys: Vec<&str> = json
+        .as_object()
+        .unwrap()
+        .keys()
+        .map(String::as_str)
+        .collect();
     keys.sort();
     assert_eq!(
         keys,
-        ["alerts", "dropped", "epochs", "inlier_fraction", "observations", "rejected", "status_counts"],
+        [
+            "alerts",
+            "dropped",
+            "epochs",
+            "inlier_fraction",
+            "observations",
+            "rejected",
+            "status_counts"
+        ],
         "no truth in the log: no error keys"
     );
     let alerts = json["alerts"].as_array().unwrap();
@@ -48,11 +61,19 @@ fn false_stars_raise_an_alert_and_fail_on_alert_exits_1() {
         .expect("the star camera's inlier alert");
     // Fault from 22 s to 32 s (data time): raised inside it, cleared after it.
     let raised = star["raised"].as_i64().unwrap();
-    assert!((22_000_000_000..32_000_000_000).contains(&raised), "{raised}");
+    assert!(
+        (22_000_000_000..32_000_000_000).contains(&raised),
+        "{raised}"
+    );
     let cleared = star["cleared"].as_i64().expect("cleared after the fault");
     assert!(cleared > 32_000_000_000, "{cleared}");
     for alert in alerts {
-        let keys: Vec<&str> = alert.as_object().unwrap().keys().map(String::as_str).collect();
+        let keys: Vec<&str> = alert
+            .as_object()
+            .unwrap()
+            .keys()
+            .map(String::as_str)
+            .collect();
         assert_eq!(keys, ["cleared", "kind", "raised", "sensor"]);
     }
     let counts = json["status_counts"].as_object().unwrap();
@@ -60,5 +81,8 @@ fn false_stars_raise_an_alert_and_fail_on_alert_exits_1() {
     assert_eq!(names, ["degraded", "insufficient", "ok", "unobservable"]);
     let header = std::fs::read_to_string(&csv).unwrap();
     let header = header.lines().next().unwrap();
-    assert!(header.ends_with(",status"), "no error column without truth: {header}");
+    assert!(
+        header.ends_with(",status"),
+        "no error column without truth: {header}"
+    );
 }

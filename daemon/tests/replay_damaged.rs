@@ -10,8 +10,7 @@ use replay_support::*;
 
 /// Epochs of a replay, from its summary file.
 fn epochs(summary: &std::path::Path) -> u64 {
-    let json: serde_json::Value =
-        serde_json::from_slice(&std::fs::read(summary).unwrap()).unwrap();
+    let json: serde_json::Value = serde_json::from_slice(&std::fs::read(summary).unwrap()).unwrap();
     json["epochs"].as_u64().unwrap()
 }
 
@@ -20,7 +19,11 @@ fn good_log(dir: &TempDir) -> (std::path::PathBuf, u64) {
     let log = dir.join("good.wlog");
     write_sim_log(&log, &scenario, &estimator_table(&scenario));
     let summary = dir.join("good.json");
-    let out = replay(&[log.to_str().unwrap(), "--summary", summary.to_str().unwrap()]);
+    let out = replay(&[
+        log.to_str().unwrap(),
+        "--summary",
+        summary.to_str().unwrap(),
+    ]);
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     assert!(text(&out.stderr).is_empty(), "{}", text(&out.stderr));
     (log, epochs(&summary))
@@ -35,12 +38,22 @@ fn truncated_log_is_read_to_its_last_whole_record() {
     // Cut 7 bytes into the last data record (before the end record, 40 bytes or so).
     std::fs::write(&torn, &bytes[..bytes.len() - 60]).unwrap();
     let summary = dir.join("torn.json");
-    let out = replay(&[torn.to_str().unwrap(), "--summary", summary.to_str().unwrap()]);
+    let out = replay(&[
+        torn.to_str().unwrap(),
+        "--summary",
+        summary.to_str().unwrap(),
+    ]);
     let stderr = text(&out.stderr);
     eprintln!("{stderr}");
     assert_eq!(out.status.code(), Some(0), "{stderr}");
-    assert!(stderr.contains(torn.to_str().unwrap()), "names the file: {stderr}");
-    assert!(stderr.contains("cut short") && stderr.contains("at offset"), "{stderr}");
+    assert!(
+        stderr.contains(torn.to_str().unwrap()),
+        "names the file: {stderr}"
+    );
+    assert!(
+        stderr.contains("cut short") && stderr.contains("at offset"),
+        "{stderr}"
+    );
     assert!(stderr.contains("without a clean close"), "{stderr}");
     let got = epochs(&summary);
     // The closing tick is lost with the tail: at most the last epoch goes.
@@ -59,7 +72,11 @@ fn corrupted_record_in_the_middle_is_skipped_and_the_rest_used() {
     let bad = dir.join("bad.wlog");
     std::fs::write(&bad, &bytes).unwrap();
     let summary = dir.join("bad.json");
-    let out = replay(&[bad.to_str().unwrap(), "--summary", summary.to_str().unwrap()]);
+    let out = replay(&[
+        bad.to_str().unwrap(),
+        "--summary",
+        summary.to_str().unwrap(),
+    ]);
     let stderr = text(&out.stderr);
     eprintln!("{stderr}");
     assert_eq!(out.status.code(), Some(0), "{stderr}");
@@ -79,19 +96,28 @@ fn empty_file_and_not_a_log_and_missing_file_exit_2_with_a_clear_message() {
     let out = replay(&[empty.to_str().unwrap()]);
     let stderr = text(&out.stderr);
     assert_eq!(out.status.code(), Some(2), "{stderr}");
-    assert!(stderr.contains(empty.to_str().unwrap()) && stderr.contains("empty"), "{stderr}");
+    assert!(
+        stderr.contains(empty.to_str().unwrap()) && stderr.contains("empty"),
+        "{stderr}"
+    );
 
     let notes = dir.join("notes.txt");
     std::fs::write(&notes, b"t,q\n0,1 0 0 0\n").unwrap();
     let out = replay(&[notes.to_str().unwrap()]);
     let stderr = text(&out.stderr);
     assert_eq!(out.status.code(), Some(2), "{stderr}");
-    assert!(stderr.contains("notes.txt") && stderr.contains("not a wahbad log"), "{stderr}");
+    assert!(
+        stderr.contains("notes.txt") && stderr.contains("not a wahbad log"),
+        "{stderr}"
+    );
 
     let missing = dir.join("missing.wlog");
     let out = replay(&[missing.to_str().unwrap()]);
     let stderr = text(&out.stderr);
     assert_eq!(out.status.code(), Some(2), "{stderr}");
     assert!(stderr.contains("missing.wlog"), "{stderr}");
-    assert!(out.stdout.is_empty(), "nothing on stdout for an unusable file");
+    assert!(
+        out.stdout.is_empty(),
+        "nothing on stdout for an unusable file"
+    );
 }

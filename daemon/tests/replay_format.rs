@@ -23,8 +23,11 @@ fn hex_block(doc: &str, after: &str) -> Vec<u8> {
 
 #[test]
 fn the_documented_bytes_are_what_the_writer_writes() {
-    let doc = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/../protocol/PROTOCOL.md"))
-        .unwrap();
+    let doc = std::fs::read_to_string(concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/../protocol/PROTOCOL.md"
+    ))
+    .unwrap();
     let expected_tick = hex_block(&doc, "### Example: a tick record");
     assert_eq!(expected_tick.len(), 25);
     let header = LogHeader {

@@ -35,7 +35,10 @@ fn a_recorded_serve_session_replays_bit_for_bit() {
         "65536",
     ]);
     let mut sub = Client::tcp(daemon.tcp);
-    assert!(matches!(sub.hello(Role::Subscriber, None), Message::Welcome(_)));
+    assert!(matches!(
+        sub.hello(Role::Subscriber, None),
+        Message::Welcome(_)
+    ));
     let subscriber = std::thread::spawn(move || {
         let mut live = Vec::new();
         while let Some(msg) = sub.recv(Duration::from_secs(30)) {
@@ -52,7 +55,10 @@ fn a_recorded_serve_session_replays_bit_for_bit() {
     });
 
     let mut source = Client::tcp(daemon.tcp);
-    assert!(matches!(source.hello(Role::Source, None), Message::Welcome(_)));
+    assert!(matches!(
+        source.hello(Role::Source, None),
+        Message::Welcome(_)
+    ));
     let messages: Vec<Message> = Simulator::new(&scenario).unwrap().collect();
     let half = messages.len() / 2;
     for (idx, msg) in messages.iter().enumerate() {
@@ -77,13 +83,23 @@ fn a_recorded_serve_session_replays_bit_for_bit() {
         n_ticks += usize::from(matches!(record, wahbad::record::Record::Tick { .. }));
     }
     assert!(reader.ended_cleanly());
-    assert!(n_ticks >= 2, "the quiet spell and the close leave ticks: {n_ticks}");
+    assert!(
+        n_ticks >= 2,
+        "the quiet spell and the close leave ticks: {n_ticks}"
+    );
 
     let lines = dir.join("replayed.jsonl");
-    let out = replay(&[log.to_str().unwrap(), "--solutions", lines.to_str().unwrap()]);
+    let out = replay(&[
+        log.to_str().unwrap(),
+        "--solutions",
+        lines.to_str().unwrap(),
+    ]);
     let stdout = text(&out.stdout);
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
-    assert!(stdout.contains("configuration: recorded in the log header\n"), "{stdout}");
+    assert!(
+        stdout.contains("configuration: recorded in the log header\n"),
+        "{stdout}"
+    );
     let replayed: Vec<Vec<u8>> = std::fs::read_to_string(&lines)
         .unwrap()
         .lines()
@@ -102,10 +118,16 @@ fn a_recorded_serve_session_replays_bit_for_bit() {
         })
         .count();
     assert!(live.len() >= 390, "only {} live outputs", live.len());
-    assert!(n_alerts >= 2, "the false stars raise and clear an alert: {n_alerts}");
+    assert!(
+        n_alerts >= 2,
+        "the false stars raise and clear an alert: {n_alerts}"
+    );
     assert_eq!(replayed.len(), live.len(), "output counts differ");
     let first_diff = replayed.iter().zip(&live).position(|(a, b)| a != b);
-    assert_eq!(first_diff, None, "replayed output differs from the live feed");
+    assert_eq!(
+        first_diff, None,
+        "replayed output differs from the live feed"
+    );
     eprintln!(
         "measured: {} live outputs ({n_alerts} alerts, {n_ticks} ticks in the log) reproduced bit for bit",
         live.len()

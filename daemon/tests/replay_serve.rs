@@ -32,7 +32,10 @@ fn a_paced_replay_is_followed_by_a_subscriber_over_the_protocol() {
     let mut stdout = BufReader::new(child.stdout.take().unwrap());
     let addr: SocketAddr = loop {
         let mut line = String::new();
-        assert!(stdout.read_line(&mut line).unwrap() > 0, "no listening line");
+        assert!(
+            stdout.read_line(&mut line).unwrap() > 0,
+            "no listening line"
+        );
         if let Some(addr) = line.trim().strip_prefix("listening tcp ") {
             break addr.parse().unwrap();
         }
@@ -43,7 +46,10 @@ fn a_paced_replay_is_followed_by_a_subscriber_over_the_protocol() {
         other => panic!("a source was not refused: {other:?}"),
     }
     let mut sub = Client::tcp(addr);
-    assert!(matches!(sub.hello(Role::Subscriber, None), Message::Welcome(_)));
+    assert!(matches!(
+        sub.hello(Role::Subscriber, None),
+        Message::Welcome(_)
+    ));
     let mut got = Vec::new();
     let mut told = false;
     while let Some(msg) = sub.recv(Duration::from_secs(20)) {
@@ -66,11 +72,24 @@ fn a_paced_replay_is_followed_by_a_subscriber_over_the_protocol() {
         .map(|line| encode_frame(&serde_json::from_str::<Message>(line).unwrap()))
         .collect();
     // 20 s at speed 10 is 2 s of wall time; connecting takes milliseconds.
-    assert!(got.len() * 10 >= written.len() * 8, "{} of {}", got.len(), written.len());
+    assert!(
+        got.len() * 10 >= written.len() * 8,
+        "{} of {}",
+        got.len(),
+        written.len()
+    );
     let start = written
         .iter()
         .position(|frame| *frame == got[0])
         .expect("the first frame received is one of the replay's");
-    assert_eq!(&written[start..], &got[..], "the feed is the replay's tail, in order");
-    eprintln!("measured: subscriber got {} of {} outputs", got.len(), written.len());
+    assert_eq!(
+        &written[start..],
+        &got[..],
+        "the feed is the replay's tail, in order"
+    );
+    eprintln!(
+        "measured: subscriber got {} of {} outputs",
+        got.len(),
+        written.len()
+    );
 }

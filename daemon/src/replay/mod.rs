@@ -100,7 +100,8 @@ pub fn resolve_config(
 ) -> Result<ResolvedConfig, ReplayError> {
     let (table, mut source) = match config_file {
         Some(path) => (
-            estimator_table(Some(path), flags).map_err(|err| ReplayError::Config(err.to_string()))?,
+            estimator_table(Some(path), flags)
+                .map_err(|err| ReplayError::Config(err.to_string()))?,
             format!(
                 "[estimator] of {} (instead of the one recorded in the log)",
                 path.display()
@@ -144,8 +145,8 @@ pub fn errors_against_truth(solutions: &[Solution], truth: &TruthTrack) -> Vec<O
             }
             let q_true = truth.at(solution.t)?;
             let err = truth::attitude_error(&truth::unit_q(solution.q), &q_true);
-            let within = truth::mahalanobis2(&err, &solution.cov)
-                .is_some_and(|m2| m2 <= CHI2_3DOF_3SIGMA);
+            let within =
+                truth::mahalanobis2(&err, &solution.cov).is_some_and(|m2| m2 <= CHI2_3DOF_3SIGMA);
             Some(EpochError {
                 arcsec: err.norm() * truth::ARCSEC_PER_RAD,
                 within_3sigma: within,
@@ -158,7 +159,7 @@ pub fn errors_against_truth(solutions: &[Solution], truth: &TruthTrack) -> Vec<O
 mod tests {
     use super::*;
 
-    fn header(config: &str) -> LogHeader {
+    fn log_header(config: &str) -> LogHeader {
         LogHeader {
             created_ns: 0,
             program: "test".into(),
@@ -170,7 +171,7 @@ mod tests {
 
     #[test]
     fn recorded_configuration_unless_overridden() {
-        let header = header("period_ms = 200\nspan_ms = 2000\n");
+        let header = log_header("period_ms = 200\nspan_ms = 2000\n");
         let resolved = resolve_config(&header, None, &EstimatorFlags::default()).unwrap();
         assert_eq!(resolved.config.period_ms, 200);
         assert_eq!(resolved.source, "recorded in the log header");
@@ -182,7 +183,8 @@ mod tests {
         assert_eq!(resolved.config.period_ms, 50);
         assert_eq!(resolved.config.span_ms, 2000, "the rest stays recorded");
         assert!(resolved.source.ends_with("overridden by --period-ms 50"));
-        let err = resolve_config(&header("period_ms = \"x\""), None, &flags).unwrap_err();
+        let bad = log_header("period_ms = \"x\"");
+        let err = resolve_config(&bad, None, &flags).unwrap_err();
         assert!(err.is_bad_input(), "{err}");
     }
 }
