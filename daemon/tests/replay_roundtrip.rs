@@ -21,8 +21,10 @@ fn a_recorded_serve_session_replays_bit_for_bit() {
     let dir = TempDir::new("roundtrip");
     // The default timeline cut to 40 s: nominal stretches and the false-star
     // fault, so the feed holds alerts as well as solutions.
-    let mut scenario = Scenario::default();
-    scenario.duration_s = 40.0;
+    let scenario = Scenario {
+        duration_s: 40.0,
+        ..Scenario::default()
+    };
     let config = dir.join("bench.toml");
     write_config_file(&config, &estimator_table(&scenario));
     let log = dir.join("session.wlog");
