@@ -183,7 +183,7 @@ mod tests {
         assert_eq!(resolved.config.period_ms, 50);
         assert_eq!(resolved.config.span_ms, 2000, "the rest stays recorded");
         assert!(resolved.source.ends_with("overridden by --period-ms 50"));
-        let bad = log_header("period_ms = \"x\"");
+        let bad = log_header("span_ms = \"x\"");
         let err = resolve_config(&bad, None, &flags).unwrap_err();
         assert!(err.is_bad_input(), "{err}");
     }

@@ -150,15 +150,15 @@ mod tests {
         // A_true = (I - [δθ×]) A_est for a small δθ about body x.
         let truth = UnitQuaternion::from_euler_angles(0.3, -0.2, 1.0);
         let dtheta = Vector3::new(1e-4, 0.0, 0.0);
-        let a_est = truth.to_rotation_matrix().into_inner();
-        let skew = dtheta.cross_matrix();
-        let a_true_approx = (Matrix3::identity() - skew) * a_est;
-        // Estimate from A_est = (I + [δθ×]) A_true to first order.
+        // An estimate off by δθ about body x: A_est = exp([δθ×]) A_true.
         let est = UnitQuaternion::from_scaled_axis(dtheta) * truth;
+        let a_est = est.to_rotation_matrix().into_inner();
+        let a_true = truth.to_rotation_matrix().into_inner();
+        // The protocol's first-order relation holds (error O(|δθ|²) = 1e-8).
+        let a_true_approx = (Matrix3::identity() - dtheta.cross_matrix()) * a_est;
+        assert!((a_true - a_true_approx).norm() < 1e-7);
         let err = attitude_error(&est, &truth);
         assert!((err - dtheta).norm() < 1e-12, "{err}");
-        let a_true = truth.to_rotation_matrix().into_inner();
-        assert!((a_true - a_true_approx).norm() < 1e-7);
         let cov = [1e-8, 0.0, 0.0, 0.0, 1e-8, 0.0, 0.0, 0.0, 1e-8];
         assert!((mahalanobis2(&err, &cov).unwrap() - 1.0).abs() < 1e-9);
     }
