@@ -47,7 +47,8 @@ pub struct ReplayArgs {
     #[arg(long, value_name = "X")]
     pub speed: Option<f64>,
     /// Republish the solutions and alerts to subscribers on this TCP address,
-    /// over the wire protocol, so `watch` can follow the replay (sources are refused).
+    /// over the wire protocol, so `watch` can follow the replay (sources are refused;
+    /// with --speed the subscribers keep up, unpaced they get `lagged`).
     #[arg(long, value_name = "ADDR")]
     pub serve: Option<SocketAddr>,
     /// Write the solution and alert messages as JSON lines to FILE.
