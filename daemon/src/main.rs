@@ -29,6 +29,9 @@ enum Command {
     Serve(cmd::serve::ServeCmdArgs),
     /// Subscribe to a running daemon and print its feed.
     Watch(cmd::watch::WatchArgs),
+    /// Run a recorded log through the estimator again: solutions, CSV,
+    /// summary, error against truth; optionally paced and republished.
+    Replay(cmd::replay::ReplayArgs),
 }
 
 fn main() -> ExitCode {
@@ -43,6 +46,7 @@ fn main() -> ExitCode {
         Command::Study(args) => cmd::study::run(args),
         Command::Serve(args) => cmd::serve::run(args),
         Command::Watch(args) => cmd::watch::run(args),
+        Command::Replay(args) => cmd::replay::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
