@@ -29,6 +29,9 @@ enum Command {
     Serve(cmd::serve::ServeCmdArgs),
     /// Subscribe to a running daemon and print its feed.
     Watch(cmd::watch::WatchArgs),
+    /// Simulate the bench scenario (air-bearing table, star camera, magnetometer,
+    /// sun sensor, gyro, faults, truth): write a log or stream into a daemon.
+    Simulate(cmd::simulate::SimulateArgs),
 }
 
 fn main() -> ExitCode {
@@ -49,6 +52,7 @@ fn main() -> ExitCode {
         Command::Study(args) => cmd::study::run(args),
         Command::Serve(args) => cmd::serve::run(args),
         Command::Watch(args) => cmd::watch::run(args),
+        Command::Simulate(args) => cmd::simulate::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
