@@ -32,14 +32,22 @@ enum Command {
     /// Simulate the bench scenario (air-bearing table, star camera, magnetometer,
     /// sun sensor, gyro, faults, truth): write a log or stream into a daemon.
     Simulate(cmd::simulate::SimulateArgs),
+    /// The whole program in one command: an in-process daemon fed by the
+    /// simulated bench scenario with faults, its live feed, then a report.
+    Demo(cmd::demo::DemoArgs),
 }
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    // The demo prints its alerts itself; the warn-level copies would double them.
+    let default_log_level = match cli.command {
+        Command::Demo(_) => "error",
+        _ => "warn",
+    };
     tracing_subscriber::fmt()
         .with_env_filter(
             tracing_subscriber::EnvFilter::try_from_default_env()
-                .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("warn")),
+                .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(default_log_level)),
         )
         .with_writer(std::io::stderr)
         .init();
@@ -53,6 +61,7 @@ fn main() -> ExitCode {
         Command::Serve(args) => cmd::serve::run(args),
         Command::Watch(args) => cmd::watch::run(args),
         Command::Simulate(args) => cmd::simulate::run(args),
+        Command::Demo(args) => cmd::demo::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

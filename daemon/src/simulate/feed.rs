@@ -3,7 +3,8 @@
 //!
 //! - [`estimator_table`]: the `[estimator]` table that matches a scenario
 //!   (per-sensor kind, σ and expected rate from
-//!   [`Scenario::sensor_settings`], the gyro's angle random walk), so a
+//!   [`Scenario::sensor_settings`], a staleness allowance of three samples
+//!   but at least [`MIN_STALE_MS`], the gyro's angle random walk), so a
 //!   replay of the log, or a daemon given it, uses the simulator's own noise.
 //! - [`write_log`]: the run as the core thread would have recorded it had a
 //!   daemon received it without delay: one `F` record per message (the frame
@@ -126,6 +127,7 @@ pub fn estimator_table(scenario: &Scenario) -> toml::Table {
             sensor.insert("sigma".into(), setting.sigma.into());
         }
         sensor.insert("expected_rate_hz".into(), setting.rate_hz.into());
+        sensor.insert("stale_ms".into(), stale_ms(setting.rate_hz).into());
         sensors.insert(setting.name.clone(), sensor.into());
     }
     let mut table = toml::Table::new();
@@ -134,6 +136,18 @@ pub fn estimator_table(scenario: &Scenario) -> toml::Table {
     }
     table.insert("sensors".into(), sensors.into());
     table
+}
+
+/// Shortest staleness allowance written, ms. The closing tick of a run
+/// lands up to one period plus the latency allowance (150 ms with the
+/// defaults) after the newest data; 3 samples of a 100 Hz gyro (30 ms)
+/// would raise `stale` at every clean end.
+pub const MIN_STALE_MS: i64 = 200;
+
+/// Staleness allowance of a sensor sampling at `rate_hz`: three sample
+/// periods (the estimator's own rule), at least [`MIN_STALE_MS`].
+fn stale_ms(rate_hz: f64) -> i64 {
+    ((3000.0 / rate_hz).ceil() as i64).max(MIN_STALE_MS)
 }
 
 /// `estimator` as the TOML text of a config file (`[estimator]` table).
