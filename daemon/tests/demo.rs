@@ -91,7 +91,7 @@ fn demo_runs_to_completion_and_writes_its_report() {
             Ok(quick_xml::events::Event::Start(e)) | Ok(quick_xml::events::Event::Empty(e)) => {
                 n_elements += 1;
                 if root.is_none() {
-                    root = Some(String::from_utf8_lossy(e.name().as_ref()).into_owned());
+                    root = Some(std::str::from_utf8(e.name().into_inner()).unwrap().to_owned());
                 }
             }
             Ok(quick_xml::events::Event::Eof) => break,
