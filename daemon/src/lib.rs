@@ -5,6 +5,7 @@
 //! - [`estimator`]: the streaming estimator (window, rate propagation, alerts).
 //! - [`study`]: Monte-Carlo studies of the solvers against the Cramér–Rao bound.
 //! - [`record`]: the recording log written by `serve --record` and read by `replay`.
+//! - [`replay`]: `wahbad replay`: a log through the same estimator, outputs, truth error.
 //! - [`settings`]: `serve` flags, the TOML config file, validated [`ServeConfig`].
 //! - [`core_thread`]: the estimator on its own thread, with the recorder.
 //! - [`serve`]: the live server (TCP, Unix socket, UDP; sources and subscribers).
@@ -13,6 +14,7 @@
 pub mod core_thread;
 pub mod estimator;
 pub mod record;
+pub mod replay;
 pub mod serve;
 pub mod settings;
 pub mod simulate;

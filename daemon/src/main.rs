@@ -35,6 +35,9 @@ enum Command {
     /// The whole program in one command: an in-process daemon fed by the
     /// simulated bench scenario with faults, its live feed, then a report.
     Demo(cmd::demo::DemoArgs),
+    /// Run a recorded log through the estimator again: solutions, CSV,
+    /// summary, error against truth; optionally paced and republished.
+    Replay(cmd::replay::ReplayArgs),
 }
 
 fn main() -> ExitCode {
@@ -62,6 +65,7 @@ fn main() -> ExitCode {
         Command::Watch(args) => cmd::watch::run(args),
         Command::Simulate(args) => cmd::simulate::run(args),
         Command::Demo(args) => cmd::demo::run(args),
+        Command::Replay(args) => cmd::replay::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

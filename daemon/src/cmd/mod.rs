@@ -2,6 +2,7 @@
 //! and its output into files or stdout. `anyhow` lives here and in `main`.
 
 pub mod demo;
+pub mod replay;
 pub mod serve;
 pub mod simulate;
 pub mod solve;

@@ -169,12 +169,12 @@ pub async fn run(
             accepted = tcp.accept() => match accepted {
                 Ok((stream, peer)) => {
                     let _ = stream.set_nodelay(true);
-                    admit(stream, peer.to_string(), &shared, &core, &stop_rx, &permits, &mut tasks);
+                    admit(stream, peer.to_string(), &shared, Some(&core), &stop_rx, &permits, &mut tasks);
                 }
                 Err(err) => accept_failed(err).await,
             },
             accepted = accept_unix(unix_listener.as_ref()) => match accepted {
-                Ok(stream) => admit(stream, "unix".to_string(), &shared, &core, &stop_rx, &permits, &mut tasks),
+                Ok(stream) => admit(stream, "unix".to_string(), &shared, Some(&core), &stop_rx, &permits, &mut tasks),
                 Err(err) => accept_failed(err).await,
             },
             // Reap finished sessions so the set does not grow.
@@ -228,12 +228,65 @@ pub async fn run(
     Ok(summary)
 }
 
+/// Serves subscribers only, from a feed made elsewhere (what `replay --serve`
+/// uses): the same hello, token, welcome, subscriber loop, `status` answers,
+/// `lagged` and connection limit as [`run`]; a source's hello is refused with
+/// `error hello`. The subscribers' feed ends when every sender of `feed` is
+/// dropped (they are then sent `error shutdown`); the server stops accepting
+/// when `shutdown` completes and gives open connections [`DRAIN_GRACE`] to finish.
+pub async fn run_feed(
+    tcp: TcpListener,
+    config: ServeConfig,
+    counters: Arc<Counters>,
+    feed: broadcast::Receiver<Arc<Published>>,
+    shutdown: impl Future<Output = ()>,
+) {
+    let shared = Arc::new(Shared {
+        config,
+        counters,
+        feed_template: Mutex::new(feed),
+        server_name: format!("wahbad {} (replay)", env!("CARGO_PKG_VERSION")),
+    });
+    let (stop_tx, stop_rx) = watch::channel(false);
+    let permits = Arc::new(Semaphore::new(shared.config.limits.max_connections));
+    let mut tasks = JoinSet::new();
+    tokio::pin!(shutdown);
+    loop {
+        tokio::select! {
+            _ = &mut shutdown => break,
+            accepted = tcp.accept() => match accepted {
+                Ok((stream, peer)) => {
+                    let _ = stream.set_nodelay(true);
+                    admit(stream, peer.to_string(), &shared, None, &stop_rx, &permits, &mut tasks);
+                }
+                Err(err) => accept_failed(err).await,
+            },
+            Some(_) = tasks.join_next(), if !tasks.is_empty() => {}
+        }
+    }
+    drop(tcp);
+    // Connections still in their hello are told; subscribers finish the feed.
+    let _ = stop_tx.send(true);
+    drop(shared);
+    let deadline = tokio::time::sleep(DRAIN_GRACE);
+    tokio::pin!(deadline);
+    loop {
+        tokio::select! {
+            _ = &mut deadline => {
+                tasks.abort_all();
+                break;
+            }
+            next = tasks.join_next() => if next.is_none() { break },
+        }
+    }
+}
+
 /// Starts a session for an accepted stream, or refuses it with `busy`.
 fn admit<S>(
     stream: S,
     peer: String,
     shared: &Arc<Shared>,
-    core: &CoreSender,
+    core: Option<&CoreSender>,
     stop: &watch::Receiver<bool>,
     permits: &Arc<Semaphore>,
     tasks: &mut JoinSet<()>,
@@ -258,7 +311,7 @@ fn admit<S>(
         });
         return;
     };
-    let (shared, core, stop) = (shared.clone(), core.clone(), stop.clone());
+    let (shared, core, stop) = (shared.clone(), core.cloned(), stop.clone());
     tasks.spawn(async move {
         session::serve_stream(stream, peer, shared, core, stop).await;
         drop(permit);

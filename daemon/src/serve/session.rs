@@ -31,7 +31,7 @@ pub async fn serve_stream<S>(
     stream: S,
     peer: String,
     shared: Arc<Shared>,
-    core: CoreSender,
+    core: Option<CoreSender>,
     mut shutdown: watch::Receiver<bool>,
 ) where
     S: AsyncRead + AsyncWrite + Unpin,
@@ -92,6 +92,14 @@ pub async fn serve_stream<S>(
         close_with_error(&mut conn, code, message).await;
         return;
     }
+    // A feed-only server (a replay) has no estimator to feed.
+    if hello.role == Role::Source && core.is_none() {
+        bump(&shared.counters.hello_errors);
+        let message = "this server only publishes a replay; sources are not accepted";
+        tracing::info!(%peer, "connection refused: {message}");
+        close_with_error(&mut conn, ErrorCode::Hello, message.into()).await;
+        return;
+    }
     let welcome = Message::Welcome(Welcome {
         version: PROTOCOL_VERSION,
         server: shared.server_name.clone(),
@@ -102,6 +110,7 @@ pub async fn serve_stream<S>(
     let name = hello.name.clone().unwrap_or_default();
     match hello.role {
         Role::Source => {
+            let Some(core) = core else { return };
             tracing::info!(%peer, %name, "source connected");
             let _gauge = GaugeGuard::new(&shared.counters.sources);
             source_loop(&mut conn, &shared, &peer, core, shutdown).await;
