@@ -10,11 +10,13 @@
 //! - [`core_thread`]: the estimator on its own thread, with the recorder.
 //! - [`serve`]: the live server (TCP, Unix socket, UDP; sources and subscribers).
 //! - [`simulate`]: the bench-scenario simulator (seeded stream of obs, rate, truth).
+//! - [`report`]: replay outputs for people and tools (SVG report, CCSDS AEM).
 
 pub mod core_thread;
 pub mod estimator;
 pub mod record;
 pub mod replay;
+pub mod report;
 pub mod serve;
 pub mod settings;
 pub mod simulate;

@@ -1,0 +1,830 @@
+//! The replay report as a hand-written SVG: stacked panels on one data-time
+//! axis (seconds on the bench clock).
+//!
+//! 1. attitude error against truth (arcsec, log scale) with its 3σ envelope,
+//!    σ = √trace(cov) (the RSS of the three per-axis 1σ); without truth, the
+//!    per-axis 1σ instead;
+//! 2. inlier fraction of the window, with the alert level as a dashed line;
+//! 3. one row per sensor, marked where that sensor had outliers in the window;
+//! 4. one row per (alert kind, sensor), shaded from raised to cleared (or to
+//!    the end of the data), and a status strip (ok / degraded / unobservable /
+//!    insufficient) with its legend.
+//!
+//! Each pixel column draws the minimum and maximum of the epochs it covers, so
+//! the file size grows with the plot width, not with the run length.
+//! Elements tests and scripts can find: `#series-error`, `#series-envelope`,
+//! `#series-sigma-x|y|z`, `#series-inlier-fraction`, `#line-inlier-level`,
+//! `.outlier-mark[data-sensor]`, `.alert-span[data-kind][data-sensor]`,
+//! `.status-run[data-status]`.
+
+use std::f64::consts::PI;
+use std::fmt::Write as _;
+
+use wahbad_protocol::{Alert, Solution, SolutionStatus};
+
+use super::decimate::{min_max, runs, Cell, Columns};
+use super::spans::{alert_spans, has_outliers, sensor_names, worse, AlertSpan};
+
+const WIDTH: f64 = 960.0;
+const LEFT: f64 = 150.0;
+const RIGHT: f64 = 24.0;
+const PLOT_W: f64 = WIDTH - LEFT - RIGHT;
+const TOP: f64 = 92.0;
+const ERROR_H: f64 = 220.0;
+const FRACTION_H: f64 = 110.0;
+const ROW_H: f64 = 16.0;
+const STRIP_H: f64 = 14.0;
+const GAP: f64 = 40.0;
+
+const RAD_TO_ARCSEC: f64 = 180.0 / PI * 3600.0;
+/// Log-axis limits, arcsec: a milliarcsecond floor; 10⁶″ exceeds half a turn.
+const LOG_FLOOR: i32 = -3;
+const LOG_CEIL: i32 = 6;
+
+const INK: &str = "#22262e";
+const PAPER: &str = "#fcfbf8";
+const PANEL: &str = "#f0efe9";
+const GRID: &str = "#d8d6cc";
+const MUTED: &str = "#60646f";
+const ERROR_INK: &str = "#1d4e89";
+const ENVELOPE_FILL: &str = "#9cc3e4";
+const AXIS_INK: [&str; 3] = ["#b5403a", "#3d8b4f", "#1d4e89"];
+const FRACTION_INK: &str = "#5b3f8c";
+const LEVEL_INK: &str = "#c0641f";
+const OUTLIER_INK: &str = "#b5403a";
+const ALERT_FILL: &str = "#e8a33d";
+
+/// Renders the replay report. `error_rad` holds one attitude error (radians)
+/// per solution, NaN where the log had no truth at that epoch, or is `None`
+/// when it had no truth at all; entries beyond `solutions` are ignored and
+/// missing ones count as NaN. `inlier_level` is the configured alert level of
+/// the inlier fraction.
+pub fn render(
+    solutions: &[Solution],
+    alerts: &[Alert],
+    error_rad: Option<&[f64]>,
+    inlier_level: f64,
+    title: &str,
+) -> String {
+    let times: Vec<f64> = solutions.iter().map(|s| s.t as f64 * 1e-9).collect();
+    let (t0, t1) = match (times.first(), times.last()) {
+        (Some(&first), Some(&last)) => (first.min(last), first.max(last)),
+        _ => (0.0, 1.0),
+    };
+    let cols = Columns::new(t0, t1, PLOT_W as usize);
+    let sensors = sensor_names(solutions);
+    let spans = alert_spans(alerts, t0, cols.t0() + cols.span());
+    let alert_rows = alert_rows(&spans);
+
+    let layout = Layout::new(sensors.len().max(1), alert_rows.len().max(1));
+    let plot = Plot { cols };
+    let mut svg = String::new();
+    let _ = writeln!(
+        svg,
+        r#"<?xml version="1.0" encoding="UTF-8"?>
+<svg xmlns="http://www.w3.org/2000/svg" width="{WIDTH}" height="{h}" viewBox="0 0 {WIDTH} {h}" font-family="Helvetica, Arial, sans-serif" fill="{INK}" data-epochs="{n}">
+<rect width="100%" height="100%" fill="{PAPER}"/>
+<text x="24" y="34" font-size="20" font-weight="bold">{title}</text>
+<text x="24" y="56" font-size="13" fill="{MUTED}">{subtitle}</text>"#,
+        h = layout.height,
+        n = solutions.len(),
+        title = escape(title),
+        subtitle = escape(&subtitle(
+            solutions,
+            alerts,
+            &spans,
+            t0,
+            t1,
+            error_rad.is_some()
+        )),
+    );
+    status_legend(&mut svg, layout.legend_y);
+
+    let error_arcsec: Option<Vec<f64>> = error_rad.map(|errors| {
+        (0..solutions.len())
+            .map(|idx| errors.get(idx).copied().unwrap_or(f64::NAN) * RAD_TO_ARCSEC)
+            .collect()
+    });
+    error_panel(
+        &mut svg,
+        &plot,
+        &layout,
+        solutions,
+        &times,
+        error_arcsec.as_deref(),
+    );
+    fraction_panel(&mut svg, &plot, &layout, solutions, &times, inlier_level);
+    for y0 in [layout.error_y, layout.fraction_y] {
+        alert_shades(
+            &mut svg,
+            &plot,
+            &spans,
+            y0,
+            if y0 == layout.error_y {
+                ERROR_H
+            } else {
+                FRACTION_H
+            },
+        );
+    }
+    outlier_panel(&mut svg, &plot, &layout, solutions, &times, &sensors);
+    alert_panel(&mut svg, &plot, &layout, &spans, &alert_rows);
+    status_strip(&mut svg, &plot, &layout, solutions, &times);
+    time_axis(&mut svg, &plot, &layout);
+    caption(&mut svg, &layout, error_rad.is_some());
+    svg.push_str("</svg>\n");
+    svg
+}
+
+/// Vertical positions of the panels.
+struct Layout {
+    error_y: f64,
+    fraction_y: f64,
+    outlier_y: f64,
+    outlier_h: f64,
+    alert_y: f64,
+    alert_h: f64,
+    strip_y: f64,
+    axis_y: f64,
+    legend_y: f64,
+    caption_y: f64,
+    height: f64,
+}
+
+impl Layout {
+    fn new(n_sensor_rows: usize, n_alert_rows: usize) -> Self {
+        let error_y = TOP;
+        let fraction_y = error_y + ERROR_H + GAP;
+        let outlier_y = fraction_y + FRACTION_H + GAP;
+        let outlier_h = n_sensor_rows as f64 * ROW_H;
+        let alert_y = outlier_y + outlier_h + GAP;
+        let alert_h = n_alert_rows as f64 * ROW_H;
+        let strip_y = alert_y + alert_h + 12.0;
+        let axis_y = strip_y + STRIP_H;
+        let caption_y = axis_y + 48.0;
+        Layout {
+            error_y,
+            fraction_y,
+            outlier_y,
+            outlier_h,
+            alert_y,
+            alert_h,
+            strip_y,
+            axis_y,
+            legend_y: 74.0,
+            caption_y,
+            height: caption_y + 36.0,
+        }
+    }
+}
+
+/// Horizontal mapping of data time.
+struct Plot {
+    cols: Columns,
+}
+
+impl Plot {
+    fn x_of_time(&self, t_s: f64) -> f64 {
+        let u = ((t_s - self.cols.t0()) / self.cols.span()).clamp(0.0, 1.0);
+        LEFT + u * PLOT_W
+    }
+
+    fn x_of_col(&self, col: usize) -> f64 {
+        LEFT + (col as f64 + 0.5) * PLOT_W / self.cols.n_cols() as f64
+    }
+
+    fn col_width(&self) -> f64 {
+        PLOT_W / self.cols.n_cols() as f64
+    }
+}
+
+/// A value axis of a panel.
+#[derive(Clone, Copy)]
+enum Scale {
+    /// log10 decades `lo..=hi`.
+    Log { lo: i32, hi: i32 },
+    /// 0 to 1.
+    Unit,
+}
+
+impl Scale {
+    fn y(self, y0: f64, h: f64, value: f64) -> f64 {
+        let u = match self {
+            Scale::Log { lo, hi } => {
+                let floor = 10f64.powi(lo);
+                let v = if value > floor {
+                    value.log10()
+                } else {
+                    lo as f64
+                };
+                (v - lo as f64) / (hi - lo) as f64
+            }
+            Scale::Unit => value,
+        };
+        y0 + h * (1.0 - u.clamp(0.0, 1.0))
+    }
+}
+
+fn subtitle(
+    solutions: &[Solution],
+    alerts: &[Alert],
+    spans: &[AlertSpan],
+    t0: f64,
+    t1: f64,
+    has_truth: bool,
+) -> String {
+    if solutions.is_empty() {
+        return "no solutions in this run".into();
+    }
+    let raised = alerts
+        .iter()
+        .filter(|a| a.state == wahbad_protocol::AlertState::Raised)
+        .count();
+    format!(
+        "{} epochs · data time {t0:.1}–{t1:.1} s · {raised} alert(s) raised, {} span(s) · truth {}",
+        solutions.len(),
+        spans.len(),
+        if has_truth { "present" } else { "absent" }
+    )
+}
+
+fn panel_frame(svg: &mut String, y0: f64, h: f64, title: &str) {
+    let _ = writeln!(
+        svg,
+        r#"<rect x="{LEFT}" y="{y0}" width="{PLOT_W}" height="{h}" fill="{PANEL}" rx="3"/>
+<text x="{LEFT}" y="{:.1}" font-size="13" font-weight="bold">{}</text>"#,
+        y0 - 8.0,
+        escape(title)
+    );
+}
+
+fn y_tick(svg: &mut String, y: f64, label: &str) {
+    let _ = writeln!(
+        svg,
+        r#"<line x1="{LEFT}" y1="{y:.1}" x2="{:.1}" y2="{y:.1}" stroke="{GRID}" stroke-width="1"/>
+<text x="{:.1}" y="{:.1}" font-size="11" text-anchor="end">{}</text>"#,
+        LEFT + PLOT_W,
+        LEFT - 6.0,
+        y + 4.0,
+        escape(label)
+    );
+}
+
+/// Status of an epoch whose estimate is meaningful (and whose cov is finite).
+fn is_estimate(status: SolutionStatus) -> bool {
+    matches!(status, SolutionStatus::Ok | SolutionStatus::Degraded)
+}
+
+fn error_panel(
+    svg: &mut String,
+    plot: &Plot,
+    layout: &Layout,
+    solutions: &[Solution],
+    times: &[f64],
+    error_arcsec: Option<&[f64]>,
+) {
+    let y0 = layout.error_y;
+    let sigma = |s: &Solution, diag: usize| -> f64 {
+        if is_estimate(s.status) {
+            s.cov[diag].sqrt() * RAD_TO_ARCSEC
+        } else {
+            f64::NAN
+        }
+    };
+    // (id, colour, values, is_band)
+    let mut series: Vec<(&str, &str, Vec<f64>, bool)> = Vec::new();
+    match error_arcsec {
+        Some(errors) => {
+            let envelope: Vec<f64> = solutions
+                .iter()
+                .map(|s| {
+                    let trace = s.cov[0] + s.cov[4] + s.cov[8];
+                    if is_estimate(s.status) {
+                        3.0 * trace.sqrt() * RAD_TO_ARCSEC
+                    } else {
+                        f64::NAN
+                    }
+                })
+                .collect();
+            series.push(("series-envelope", ENVELOPE_FILL, envelope, true));
+            series.push(("series-error", ERROR_INK, errors.to_vec(), false));
+        }
+        None => {
+            for (axis_idx, name) in ["x", "y", "z"].iter().enumerate() {
+                let values: Vec<f64> = solutions.iter().map(|s| sigma(s, axis_idx * 4)).collect();
+                let id = match *name {
+                    "x" => "series-sigma-x",
+                    "y" => "series-sigma-y",
+                    _ => "series-sigma-z",
+                };
+                series.push((id, AXIS_INK[axis_idx], values, false));
+            }
+        }
+    }
+    let scale = log_scale(series.iter().flat_map(|(_, _, v, _)| v.iter().copied()));
+    let title = if error_arcsec.is_some() {
+        "attitude error against truth (arcsec, log) · shaded: 3σ envelope"
+    } else {
+        "1σ per body axis from the covariance (arcsec, log) · no truth in this log"
+    };
+    panel_frame(svg, y0, ERROR_H, title);
+    if let Scale::Log { lo, hi } = scale {
+        for decade in lo..=hi {
+            y_tick(
+                svg,
+                scale.y(y0, ERROR_H, 10f64.powi(decade)),
+                &decade_label(decade),
+            );
+        }
+    }
+    let _ = writeln!(
+        svg,
+        r#"<text x="{x}" y="{y}" font-size="12" text-anchor="middle" transform="rotate(-90 {x} {y})">arcsec</text>"#,
+        x = LEFT - 52.0,
+        y = y0 + ERROR_H / 2.0
+    );
+    for (id, colour, values, is_band) in &series {
+        let cells = min_max(&plot.cols, times, values);
+        if *is_band {
+            let d = band_path(plot, &cells, |v| scale.y(y0, ERROR_H, v), y0 + ERROR_H);
+            let _ = writeln!(
+                svg,
+                r#"<path id="{id}" class="series" d="{d}" fill="{colour}" fill-opacity="0.55" stroke="none"/>"#
+            );
+        } else {
+            let d = line_path(plot, &cells, |v| scale.y(y0, ERROR_H, v));
+            let _ = writeln!(
+                svg,
+                r#"<path id="{id}" class="series" d="{d}" fill="none" stroke="{colour}" stroke-width="1.3" stroke-linejoin="round"/>"#
+            );
+        }
+    }
+    if error_arcsec.is_none() {
+        let mut x = LEFT + PLOT_W - 150.0;
+        for (axis_idx, name) in ["x", "y", "z"].iter().enumerate() {
+            let _ = writeln!(
+                svg,
+                r#"<line x1="{x}" y1="{y:.1}" x2="{:.1}" y2="{y:.1}" stroke="{}" stroke-width="2"/>
+<text x="{:.1}" y="{:.1}" font-size="11">σ{name}</text>"#,
+                x + 16.0,
+                AXIS_INK[axis_idx],
+                x + 20.0,
+                y0 + 18.0,
+                y = y0 + 14.0
+            );
+            x += 48.0;
+        }
+    }
+}
+
+/// Decades spanning the finite positive values, within the axis limits.
+fn log_scale(values: impl Iterator<Item = f64>) -> Scale {
+    let (min, max) = values
+        .filter(|v| v.is_finite() && *v > 0.0)
+        .fold((f64::INFINITY, 0.0f64), |(lo, hi), v| {
+            (lo.min(v), hi.max(v))
+        });
+    if !min.is_finite() {
+        return Scale::Log { lo: 0, hi: 2 };
+    }
+    let lo = (min.log10().floor() as i32).clamp(LOG_FLOOR, LOG_CEIL - 1);
+    let hi = (max.log10().ceil() as i32).clamp(lo + 1, LOG_CEIL);
+    Scale::Log { lo, hi }
+}
+
+fn decade_label(decade: i32) -> String {
+    match decade {
+        -2..=3 => format!("{}", 10f64.powi(decade)),
+        _ => format!("1e{decade}"),
+    }
+}
+
+/// A polyline through each column's min and max, broken at gaps.
+fn line_path(plot: &Plot, cells: &[Cell], y_of: impl Fn(f64) -> f64) -> String {
+    let mut d = String::new();
+    let mut pen_down = false;
+    for (col, cell) in cells.iter().enumerate() {
+        match *cell {
+            Cell::Empty => {}
+            Cell::Gap => pen_down = false,
+            Cell::Range { lo, hi } => {
+                let x = plot.x_of_col(col);
+                let cmd = if pen_down { 'L' } else { 'M' };
+                let _ = write!(d, "{cmd}{x:.1},{:.1}", y_of(lo));
+                if hi != lo {
+                    let _ = write!(d, "L{x:.1},{:.1}", y_of(hi));
+                } else if !pen_down {
+                    // A lone point still shows as a short tick.
+                    let _ = write!(d, "h0.8");
+                }
+                pen_down = true;
+            }
+        }
+    }
+    d
+}
+
+/// Closed areas from `base_y` up to each column's maximum, one per gap-free run.
+fn band_path(plot: &Plot, cells: &[Cell], y_of: impl Fn(f64) -> f64, base_y: f64) -> String {
+    let mut d = String::new();
+    let mut run: Vec<(f64, f64)> = Vec::new();
+    let half = plot.col_width() / 2.0;
+    let flush = |run: &mut Vec<(f64, f64)>, d: &mut String| {
+        if let (Some(&(x_first, _)), Some(&(x_last, _))) = (run.first(), run.last()) {
+            let _ = write!(d, "M{:.1},{base_y:.1}", x_first - half);
+            for (x, y) in run.iter() {
+                let _ = write!(d, "L{x:.1},{y:.1}");
+            }
+            let _ = write!(
+                d,
+                "L{:.1},{:.1}L{:.1},{base_y:.1}Z",
+                x_last + half,
+                run[run.len() - 1].1,
+                x_last + half
+            );
+        }
+        run.clear();
+    };
+    for (col, cell) in cells.iter().enumerate() {
+        match *cell {
+            Cell::Empty => {}
+            Cell::Gap => flush(&mut run, &mut d),
+            Cell::Range { hi, .. } => run.push((plot.x_of_col(col), y_of(hi))),
+        }
+    }
+    flush(&mut run, &mut d);
+    d
+}
+
+fn fraction_panel(
+    svg: &mut String,
+    plot: &Plot,
+    layout: &Layout,
+    solutions: &[Solution],
+    times: &[f64],
+    inlier_level: f64,
+) {
+    let y0 = layout.fraction_y;
+    let scale = Scale::Unit;
+    panel_frame(
+        svg,
+        y0,
+        FRACTION_H,
+        "inlier fraction of the window · dashed: alert level",
+    );
+    for tick in [0.0, 0.25, 0.5, 0.75, 1.0] {
+        y_tick(svg, scale.y(y0, FRACTION_H, tick), &format!("{tick}"));
+    }
+    let values: Vec<f64> = solutions.iter().map(|s| s.inlier_fraction).collect();
+    let cells = min_max(&plot.cols, times, &values);
+    let d = line_path(plot, &cells, |v| scale.y(y0, FRACTION_H, v));
+    let level_y = scale.y(y0, FRACTION_H, inlier_level);
+    let _ = writeln!(
+        svg,
+        r#"<path id="series-inlier-fraction" class="series" d="{d}" fill="none" stroke="{FRACTION_INK}" stroke-width="1.3" stroke-linejoin="round"/>
+<line id="line-inlier-level" data-level="{inlier_level}" x1="{LEFT}" y1="{level_y:.1}" x2="{:.1}" y2="{level_y:.1}" stroke="{LEVEL_INK}" stroke-width="1.2" stroke-dasharray="5 4"/>
+<text x="{:.1}" y="{:.1}" font-size="10" text-anchor="end" fill="{LEVEL_INK}">alert level {}</text>"#,
+        LEFT + PLOT_W,
+        LEFT + PLOT_W - 4.0,
+        level_y - 4.0,
+        escape(&format!("{inlier_level:.2}"))
+    );
+}
+
+fn outlier_panel(
+    svg: &mut String,
+    plot: &Plot,
+    layout: &Layout,
+    solutions: &[Solution],
+    times: &[f64],
+    sensors: &[String],
+) {
+    let y0 = layout.outlier_y;
+    panel_frame(
+        svg,
+        y0,
+        layout.outlier_h,
+        "epochs with outliers, per sensor",
+    );
+    if sensors.is_empty() {
+        row_label(svg, y0, "no sensors");
+        return;
+    }
+    for (row_idx, sensor) in sensors.iter().enumerate() {
+        let row_y = y0 + row_idx as f64 * ROW_H;
+        let mut flags = vec![false; plot.cols.n_cols()];
+        let mut n_epochs = 0usize;
+        for (solution, &t) in solutions.iter().zip(times) {
+            if has_outliers(solution, sensor) {
+                flags[plot.cols.index(t)] = true;
+                n_epochs += 1;
+            }
+        }
+        row_label(svg, row_y, &format!("{sensor} ({n_epochs})"));
+        let sensor_attr = escape(sensor);
+        for (first, count) in runs(&flags) {
+            let x = LEFT + first as f64 * plot.col_width();
+            let _ = writeln!(
+                svg,
+                r#"<rect class="outlier-mark" data-sensor="{sensor_attr}" x="{x:.1}" y="{:.1}" width="{:.1}" height="{:.1}" fill="{OUTLIER_INK}"/>"#,
+                row_y + 3.0,
+                (count as f64 * plot.col_width()).max(1.0),
+                ROW_H - 6.0
+            );
+        }
+    }
+}
+
+fn row_label(svg: &mut String, row_y: f64, label: &str) {
+    let _ = writeln!(
+        svg,
+        r#"<text x="{:.1}" y="{:.1}" font-size="11" text-anchor="end">{}</text>"#,
+        LEFT - 6.0,
+        row_y + ROW_H - 4.0,
+        escape(label)
+    );
+}
+
+/// Distinct (kind, sensor) pairs of the spans, in order.
+fn alert_rows(spans: &[AlertSpan]) -> Vec<(String, Option<String>)> {
+    let mut rows: Vec<(String, Option<String>)> = Vec::new();
+    for span in spans {
+        let key = (span.kind.clone(), span.sensor.clone());
+        if !rows.contains(&key) {
+            rows.push(key);
+        }
+    }
+    rows
+}
+
+fn alert_panel(
+    svg: &mut String,
+    plot: &Plot,
+    layout: &Layout,
+    spans: &[AlertSpan],
+    rows: &[(String, Option<String>)],
+) {
+    let y0 = layout.alert_y;
+    panel_frame(svg, y0, layout.alert_h, "alerts, raised → cleared");
+    if rows.is_empty() {
+        row_label(svg, y0, "none raised");
+        return;
+    }
+    for (row_idx, (kind, sensor)) in rows.iter().enumerate() {
+        let row_y = y0 + row_idx as f64 * ROW_H;
+        let label = match sensor {
+            Some(sensor) => format!("{kind} · {sensor}"),
+            None => kind.clone(),
+        };
+        row_label(svg, row_y, &label);
+        for span in spans
+            .iter()
+            .filter(|s| &s.kind == kind && &s.sensor == sensor)
+        {
+            let x = plot.x_of_time(span.start_s);
+            let w = (plot.x_of_time(span.end_s) - x).max(1.5);
+            let sensor_attr = match &span.sensor {
+                Some(sensor) => format!(r#" data-sensor="{}""#, escape(sensor)),
+                None => String::new(),
+            };
+            let until = if span.open {
+                "end of data (still raised)".to_string()
+            } else {
+                format!("{:.3} s", span.end_s)
+            };
+            let from = if span.raised_before_start {
+                "before the log".to_string()
+            } else {
+                format!("{:.3} s", span.start_s)
+            };
+            let _ = writeln!(
+                svg,
+                r#"<rect class="alert-span" data-kind="{}"{sensor_attr} data-open="{}" x="{x:.1}" y="{:.1}" width="{w:.1}" height="{:.1}" fill="{ALERT_FILL}" rx="2"><title>{} from {} to {}</title></rect>"#,
+                escape(kind),
+                span.open,
+                row_y + 2.0,
+                ROW_H - 4.0,
+                escape(&label),
+                escape(&from),
+                escape(&until)
+            );
+        }
+    }
+}
+
+/// Faint bands over a panel where any alert is raised.
+fn alert_shades(svg: &mut String, plot: &Plot, spans: &[AlertSpan], y0: f64, h: f64) {
+    for span in spans {
+        let x = plot.x_of_time(span.start_s);
+        let w = (plot.x_of_time(span.end_s) - x).max(1.0);
+        let _ = writeln!(
+            svg,
+            r#"<rect class="alert-shade" x="{x:.1}" y="{y0:.1}" width="{w:.1}" height="{h:.1}" fill="{ALERT_FILL}" fill-opacity="0.12"/>"#
+        );
+    }
+}
+
+fn status_colour(status: SolutionStatus) -> &'static str {
+    match status {
+        SolutionStatus::Ok => "#6fae7a",
+        SolutionStatus::Degraded => "#e8c13d",
+        SolutionStatus::Unobservable => "#d8743a",
+        SolutionStatus::Insufficient => "#8b8f99",
+    }
+}
+
+const STATUSES: [SolutionStatus; 4] = [
+    SolutionStatus::Ok,
+    SolutionStatus::Degraded,
+    SolutionStatus::Unobservable,
+    SolutionStatus::Insufficient,
+];
+
+fn status_strip(
+    svg: &mut String,
+    plot: &Plot,
+    layout: &Layout,
+    solutions: &[Solution],
+    times: &[f64],
+) {
+    let y0 = layout.strip_y;
+    let mut cells: Vec<Option<SolutionStatus>> = vec![None; plot.cols.n_cols()];
+    for (solution, &t) in solutions.iter().zip(times) {
+        let cell = &mut cells[plot.cols.index(t)];
+        *cell = Some(cell.map_or(solution.status, |s| worse(s, solution.status)));
+    }
+    // Empty columns take the status before them, so the strip has no holes.
+    let mut last = None;
+    for cell in cells.iter_mut() {
+        match cell {
+            Some(status) => last = Some(*status),
+            None => *cell = last,
+        }
+    }
+    let _ = writeln!(
+        svg,
+        r#"<text x="{:.1}" y="{:.1}" font-size="11" text-anchor="end">status</text>"#,
+        LEFT - 6.0,
+        y0 + STRIP_H - 3.0
+    );
+    for status in STATUSES {
+        let flags: Vec<bool> = cells.iter().map(|c| *c == Some(status)).collect();
+        for (first, count) in runs(&flags) {
+            let _ = writeln!(
+                svg,
+                r#"<rect class="status-run" data-status="{}" x="{:.1}" y="{y0:.1}" width="{:.1}" height="{STRIP_H}" fill="{}"/>"#,
+                status.as_str(),
+                LEFT + first as f64 * plot.col_width(),
+                count as f64 * plot.col_width(),
+                status_colour(status)
+            );
+        }
+    }
+}
+
+fn status_legend(svg: &mut String, y: f64) {
+    let mut x = 24.0;
+    for status in STATUSES {
+        let _ = writeln!(
+            svg,
+            r#"<rect class="legend-status" x="{x}" y="{:.1}" width="12" height="10" fill="{}"/>
+<text x="{}" y="{y}" font-size="11">{}</text>"#,
+            y - 9.0,
+            status_colour(status),
+            x + 16.0,
+            status.as_str()
+        );
+        x += 24.0 + 7.0 * status.as_str().len() as f64;
+    }
+    let _ = writeln!(
+        svg,
+        r#"<rect x="{x}" y="{:.1}" width="12" height="10" fill="{ALERT_FILL}"/>
+<text x="{}" y="{y}" font-size="11">alert raised</text>
+<rect x="{}" y="{:.1}" width="12" height="10" fill="{OUTLIER_INK}"/>
+<text x="{}" y="{y}" font-size="11">outliers in window</text>"#,
+        y - 9.0,
+        x + 16.0,
+        x + 110.0,
+        y - 9.0,
+        x + 126.0
+    );
+}
+
+/// Tick spacing of 1, 2 or 5 × 10ᵏ seconds giving about eight ticks.
+fn time_step(span: f64) -> f64 {
+    let raw = span / 8.0;
+    let magnitude = 10f64.powf(raw.log10().floor());
+    [1.0, 2.0, 5.0, 10.0]
+        .into_iter()
+        .map(|m| m * magnitude)
+        .find(|step| *step >= raw)
+        .unwrap_or(10.0 * magnitude)
+}
+
+fn time_axis(svg: &mut String, plot: &Plot, layout: &Layout) {
+    let (t0, span) = (plot.cols.t0(), plot.cols.span());
+    let step = time_step(span);
+    let first = (t0 / step).ceil() as i64;
+    let last = ((t0 + span) / step).floor() as i64;
+    let decimals = if step >= 1.0 {
+        0
+    } else {
+        (-step.log10().floor()) as usize
+    };
+    for k in first..=last {
+        let t = k as f64 * step;
+        let x = plot.x_of_time(t);
+        let _ = writeln!(
+            svg,
+            r#"<line x1="{x:.1}" y1="{:.1}" x2="{x:.1}" y2="{:.1}" stroke="{GRID}" stroke-width="0.8" stroke-dasharray="1 3"/>
+<text x="{x:.1}" y="{:.1}" font-size="11" text-anchor="middle">{t:.decimals$}</text>"#,
+            layout.error_y,
+            layout.axis_y,
+            layout.axis_y + 14.0
+        );
+    }
+    let _ = writeln!(
+        svg,
+        r#"<text x="{:.1}" y="{:.1}" font-size="12" text-anchor="middle">data time (s, bench clock)</text>"#,
+        LEFT + PLOT_W / 2.0,
+        layout.axis_y + 32.0
+    );
+}
+
+fn caption(svg: &mut String, layout: &Layout, has_truth: bool) {
+    let first = if has_truth {
+        "Error: rotation angle between estimate and truth. Envelope: 3σ with σ = √trace(cov), \
+         the RSS of the per-axis 1σ; the error is an angle (≥ 0), so the envelope is one-sided."
+    } else {
+        "No truth in this log: the top panel shows the 1σ of each body axis, √cov[i][i]."
+    };
+    let second = "Each pixel column shows the min and max of the epochs it covers; \
+                  unobservable and insufficient epochs carry no envelope.";
+    for (idx, line) in [first, second].iter().enumerate() {
+        let _ = writeln!(
+            svg,
+            r#"<text class="caption" x="24" y="{:.1}" font-size="11" fill="{MUTED}">{}</text>"#,
+            layout.caption_y + idx as f64 * 15.0,
+            escape(line)
+        );
+    }
+}
+
+/// Escapes text for XML character data and attribute values.
+fn escape(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    for c in text.chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '"' => out.push_str("&quot;"),
+            '\'' => out.push_str("&apos;"),
+            // Characters XML 1.0 cannot carry at all.
+            c if (c as u32) < 0x20 && !matches!(c, '\t' | '\n' | '\r') => out.push('\u{fffd}'),
+            _ => out.push(c),
+        }
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn escapes_markup_and_control_characters() {
+        assert_eq!(
+            escape("a<b & \"c\">'d'\u{1}"),
+            "a&lt;b &amp; &quot;c&quot;&gt;&apos;d&apos;\u{fffd}"
+        );
+    }
+
+    #[test]
+    fn log_scale_covers_values_within_limits() {
+        assert!(matches!(
+            log_scale([3.0, 250.0].into_iter()),
+            Scale::Log { lo: 0, hi: 3 }
+        ));
+        assert!(matches!(
+            log_scale([1e-9, 1e12].into_iter()),
+            Scale::Log { lo: -3, hi: 6 }
+        ));
+        assert!(matches!(
+            log_scale([f64::NAN].into_iter()),
+            Scale::Log { lo: 0, hi: 2 }
+        ));
+        // One value still gets a decade of room.
+        assert!(matches!(
+            log_scale([100.0].into_iter()),
+            Scale::Log { lo: 2, hi: 3 }
+        ));
+    }
+
+    #[test]
+    fn time_steps_are_round() {
+        assert_eq!(time_step(60.0), 10.0);
+        assert_eq!(time_step(1.0), 0.2);
+        assert_eq!(time_step(3600.0), 500.0);
+    }
+}
