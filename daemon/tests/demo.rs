@@ -51,6 +51,9 @@ fn demo_runs_to_completion_and_writes_its_report() {
     assert!((22.0..32.0).contains(&at(raised)), "{raised}");
     assert!(at(cleared) > 32.0, "{cleared}");
 
+    // The recording replays to exactly the feed the subscriber saw.
+    assert!(stdout.contains("identical to the live feed"), "{stdout}");
+
     // The files it names exist and parse.
     let summary_path = out_dir.join("summary.json");
     let csv_path = out_dir.join("demo.csv");

@@ -104,9 +104,6 @@ fn each_log_replays_to_its_committed_summary_and_readme_alerts() {
         check_causes(name, preset, &log, alerts);
         if preset == Preset::Nominal {
             assert!(alerts.is_empty(), "the nominal run raises nothing");
-            // Common practice for a consistent estimator: error within 3σ nearly always.
-            let within = got["within_3sigma"].as_f64().unwrap();
-            assert!(within >= 0.99, "within 3σ on {within} of nominal epochs");
         }
     }
     let missing: Vec<_> = readme.difference(&seen).collect();

@@ -16,12 +16,15 @@ use anyhow::Context;
 use clap::Args;
 use tokio::net::TcpListener;
 use tokio::sync::oneshot;
+use wahbad::replay::output::write_csv;
+use wahbad::replay::{self, errors_against_truth, LogInput, RunOptions, Summary};
+use wahbad::report::svg;
 use wahbad::serve::display::{alert_line, lagged_line, legend, solution_line};
 use wahbad::serve::{self, Connection, Listeners};
 use wahbad::settings::{estimator_config, ServeArgs, ServeConfig};
 use wahbad::simulate::feed::{self, StreamReport};
 use wahbad::simulate::{Preset, Scenario, Simulator};
-use wahbad_protocol::{Hello, Message, Role, PROTOCOL_VERSION};
+use wahbad_protocol::{Alert, Hello, Message, Role, Solution, PROTOCOL_VERSION};
 
 use super::serve::CAUTION;
 use super::{bad_input, Failure};
@@ -88,12 +91,12 @@ pub fn run(args: &DemoArgs) -> Result<(), Failure> {
         .build()
         .context("cannot start the async runtime")
         .map_err(Failure::Failed)?;
-    let sent = runtime.block_on(live(scenario, config, args.speed, args.quiet))?;
+    let (sent, live_feed) = runtime.block_on(live(scenario, config, args.speed, args.quiet))?;
     println!(
         "# streamed {} obs, {} rate, {} truth; {} rejected",
         sent.sent.obs, sent.sent.rates, sent.sent.truths, sent.rejected
     );
-    report(&log, &args.out_dir)?;
+    report(&log, &args.out_dir, &live_feed)?;
     println!("# demo finished in {:.1} s", wall.elapsed().as_secs_f64());
     Ok(())
 }
@@ -122,7 +125,7 @@ async fn live(
     config: ServeConfig,
     speed: f64,
     quiet: bool,
-) -> Result<StreamReport, Failure> {
+) -> Result<(StreamReport, LiveFeed), Failure> {
     let failed = Failure::Failed;
     let tcp = TcpListener::bind(config.listen)
         .await
@@ -182,21 +185,48 @@ async fn live(
         .map_err(failed)?
         .context("the in-process daemon")
         .map_err(failed)?;
-    let _ = printer.await;
+    let live_feed = printer
+        .await
+        .context("the feed printer panicked")
+        .map_err(failed)?;
     if let Some(err) = summary.core.record_error {
         return Err(failed(anyhow::anyhow!("the recording is incomplete: {err}")));
     }
-    Ok(sent)
+    Ok((sent, live_feed))
+}
+
+/// What the subscriber saw of the live feed.
+#[derive(Debug, Default)]
+struct LiveFeed {
+    solutions: Vec<Solution>,
+    alerts: Vec<Alert>,
+    /// Messages the daemon skipped for this subscriber (it fell behind).
+    skipped: u64,
 }
 
 /// Prints the feed as `watch` does, until the daemon says goodbye.
-async fn print_feed(mut conn: Connection<tokio::net::TcpStream>, quiet: bool) {
+async fn print_feed(mut conn: Connection<tokio::net::TcpStream>, quiet: bool) -> LiveFeed {
+    let mut feed = LiveFeed::default();
     // Locked per line: the lock is not held across an await.
     while let Ok(Some(msg)) = conn.read_message().await {
-        let line = match &msg {
-            Message::Solution(solution) if !quiet => solution_line(solution),
-            Message::Alert(alert) => alert_line(alert),
-            Message::Lagged(lagged) => lagged_line(lagged),
+        let line = match msg {
+            Message::Solution(solution) => {
+                let line = (!quiet).then(|| solution_line(&solution));
+                feed.solutions.push(solution);
+                match line {
+                    Some(line) => line,
+                    None => continue,
+                }
+            }
+            Message::Alert(alert) => {
+                let line = alert_line(&alert);
+                feed.alerts.push(alert);
+                line
+            }
+            Message::Lagged(lagged) => {
+                feed.skipped += lagged.skipped;
+                lagged_line(&lagged)
+            }
             Message::Error(_) => break,
             _ => continue,
         };
@@ -205,11 +235,91 @@ async fn print_feed(mut conn: Connection<tokio::net::TcpStream>, quiet: bool) {
             break;
         }
     }
+    feed
 }
 
 /// Replays the recording into the summary, CSV and SVG report.
-fn report(log: &Path, out_dir: &Path) -> Result<(), Failure> {
+fn report(log: &Path, out_dir: &Path, live: &LiveFeed) -> Result<(), Failure> {
+    let failed = |err: anyhow::Error| Failure::Failed(err);
+    let input = LogInput::open(log)
+        .context("cannot open the demo's recording")
+        .map_err(failed)?;
+    let config = input
+        .header()
+        .estimator_config()
+        .context("the recorded configuration")
+        .map_err(failed)?;
+    let inlier_level = config.alerts.inlier_fraction.level;
+    let options = RunOptions {
+        speed: None,
+        keep_verdicts: true,
+    };
+    let run = replay::run(input, config, &options, &mut |_| Ok(()), &mut |_| {})
+        .context("replaying the demo's recording")
+        .map_err(failed)?;
+    let errors = (!run.truth.is_empty()).then(|| errors_against_truth(&run.solutions, &run.truth));
+    let summary = Summary::build(&run.solutions, &run.alerts, run.counts, errors.as_deref());
+
+    let summary_path = out_dir.join("summary.json");
+    let json = serde_json::to_string_pretty(&summary).map_err(|err| failed(err.into()))?;
+    write_file(&summary_path, format!("{json}\n").as_bytes())?;
+
+    let csv_path = out_dir.join("demo.csv");
+    let error_arcsec: Option<Vec<Option<f64>>> = errors
+        .as_ref()
+        .map(|errors| errors.iter().map(|e| e.map(|e| e.arcsec)).collect());
+    let mut csv = Vec::new();
+    write_csv(&mut csv, &run.solutions, error_arcsec.as_deref())
+        .map_err(|err| failed(err.into()))?;
+    write_file(&csv_path, &csv)?;
+
+    let svg_path = out_dir.join("report.svg");
+    let error_rad: Option<Vec<f64>> = error_arcsec.as_ref().map(|errors| {
+        errors
+            .iter()
+            .map(|e| e.map_or(f64::NAN, |arcsec| arcsec / ARCSEC_PER_RAD))
+            .collect()
+    });
+    let svg = svg::render(
+        &run.solutions,
+        &run.alerts,
+        error_rad.as_deref(),
+        inlier_level,
+        "wahbad demo: simulated air-bearing table with faults",
+    );
+    write_file(&svg_path, svg.as_bytes())?;
+
+    // The recording must reproduce the live feed exactly (verdicts included).
+    let same = live.skipped == 0 && live.solutions == run.solutions && live.alerts == run.alerts;
+    if same {
+        println!(
+            "# replay of the recording: {} solutions and {} alerts, identical to the live feed",
+            run.solutions.len(),
+            run.alerts.len()
+        );
+    } else {
+        println!(
+            "# WARNING: the replay of the recording differs from the live feed \
+             ({} live solutions, {} replayed; {} skipped for this subscriber)",
+            live.solutions.len(),
+            run.solutions.len(),
+            live.skipped
+        );
+    }
+    println!("# summary:");
+    print!("{}", summary.human());
     println!("# recording: {}", log.display());
-    let _ = out_dir;
+    println!("# summary:   {}", summary_path.display());
+    println!("# csv:       {}", csv_path.display());
+    println!("# report:    {}", svg_path.display());
     Ok(())
+}
+
+/// Arcseconds per radian (648000 / π).
+const ARCSEC_PER_RAD: f64 = 648_000.0 / std::f64::consts::PI;
+
+fn write_file(path: &Path, bytes: &[u8]) -> Result<(), Failure> {
+    std::fs::write(path, bytes)
+        .with_context(|| format!("cannot write {}", path.display()))
+        .map_err(Failure::Failed)
 }
