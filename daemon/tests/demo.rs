@@ -24,12 +24,16 @@ fn demo_runs_to_completion_and_writes_its_report() {
         "{stdout}\n{}",
         String::from_utf8_lossy(&out.stderr)
     );
-    assert!(stdout.starts_with("CAUTION: wahbad is test and analysis software, not flight-qualified"));
+    assert!(
+        stdout.starts_with("CAUTION: wahbad is test and analysis software, not flight-qualified")
+    );
 
     // The feed as `watch` prints it: one line per epoch (10 per data second).
     let n_solution_lines = stdout
         .lines()
-        .filter(|line| !line.starts_with('#') && line.contains(" q=[") && line.contains(" rpy321=("))
+        .filter(|line| {
+            !line.starts_with('#') && line.contains(" q=[") && line.contains(" rpy321=(")
+        })
         .count();
     assert!(
         (340..=351).contains(&n_solution_lines),
@@ -68,7 +72,10 @@ fn demo_runs_to_completion_and_writes_its_report() {
     let summary: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&summary_path).unwrap()).unwrap();
     let epochs = summary["epochs"].as_u64().unwrap();
-    assert_eq!(epochs as usize, n_solution_lines, "live lines = replayed epochs");
+    assert_eq!(
+        epochs as usize, n_solution_lines,
+        "live lines = replayed epochs"
+    );
     assert!(summary["alerts"]
         .as_array()
         .unwrap()

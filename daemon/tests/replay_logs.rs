@@ -86,7 +86,12 @@ fn each_log_replays_to_its_committed_summary_and_readme_alerts() {
         let expected_path = log.with_extension("summary.json");
         let expected: serde_json::Value =
             serde_json::from_str(&std::fs::read_to_string(&expected_path).unwrap()).unwrap();
-        assert_eq!(got, expected, "{name}: replay differs from {}", expected_path.display());
+        assert_eq!(
+            got,
+            expected,
+            "{name}: replay differs from {}",
+            expected_path.display()
+        );
 
         // The README's table, row for row.
         let alerts = got["alerts"].as_array().unwrap();
@@ -98,7 +103,10 @@ fn each_log_replays_to_its_committed_summary_and_readme_alerts() {
                 seconds(&alert["raised"]),
                 seconds(&alert["cleared"]),
             );
-            assert!(readme.contains(&row), "{row:?} is not in the README's table");
+            assert!(
+                readme.contains(&row),
+                "{row:?} is not in the README's table"
+            );
             seen.insert(row);
         }
         check_causes(name, preset, &log, alerts);
@@ -107,7 +115,10 @@ fn each_log_replays_to_its_committed_summary_and_readme_alerts() {
         }
     }
     let missing: Vec<_> = readme.difference(&seen).collect();
-    assert!(missing.is_empty(), "README rows no replay raised: {missing:?}");
+    assert!(
+        missing.is_empty(),
+        "README rows no replay raised: {missing:?}"
+    );
 }
 
 /// Every alert of a fault run lies where the scenario put its cause.
@@ -135,11 +146,10 @@ fn check_causes(name: &str, preset: Preset, log: &Path, alerts: &[serde_json::Va
                     .faults
                     .iter()
                     .find(|fault| fault_name(&fault.effect) == fault_kind)
-                    .unwrap_or_else(|| panic!("{name}: {kind} [{sensor}] without a {fault_kind} fault"));
-                let (start, end) = (
-                    (fault.start_s * 1e9) as i64,
-                    (fault.end_s * 1e9) as i64,
-                );
+                    .unwrap_or_else(|| {
+                        panic!("{name}: {kind} [{sensor}] without a {fault_kind} fault")
+                    });
+                let (start, end) = ((fault.start_s * 1e9) as i64, (fault.end_s * 1e9) as i64);
                 assert!(
                     raised >= start && raised <= end,
                     "{name}: {kind} [{sensor}] raised at {raised}, fault {start}..{end}"

@@ -10,7 +10,9 @@ fn nominal_log_summary_csv_and_error_within_3_sigma() {
     let dir = TempDir::new("nominal");
     let keep = std::env::var("REPLAY_KEEP").ok();
     let scenario = scenario(120.0, false);
-    let log = keep.map(std::path::PathBuf::from).unwrap_or_else(|| dir.join("nominal.wlog"));
+    let log = keep
+        .map(std::path::PathBuf::from)
+        .unwrap_or_else(|| dir.join("nominal.wlog"));
     write_sim_log(&log, &scenario, &estimator_table(&scenario));
     let (summary, csv, lines) = (dir.join("s.json"), dir.join("e.csv"), dir.join("o.jsonl"));
     let out = replay(&[
@@ -34,11 +36,24 @@ fn nominal_log_summary_csv_and_error_within_3_sigma() {
         stdout.contains("configuration: recorded in the log header, overridden by --span-ms 300"),
         "{stdout}"
     );
-    let json: serde_json::Value = serde_json::from_slice(&std::fs::read(&summary).unwrap()).unwrap();
-    let keys: Vec<&str> = json.as_object().unwrap().keys().map(String::as_str).collect();
+    let json: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(&summary).unwrap()).unwrap();
+    let keys: Vec<&str> = json
+        .as_object()
+        .unwrap()
+        .keys()
+        .map(String::as_str)
+        .collect();
     let mut expected = vec![
-        "alerts", "dropped", "epochs", "error_arcsec", "inlier_fraction", "observations",
-        "rejected", "status_counts", "within_3sigma",
+        "alerts",
+        "dropped",
+        "epochs",
+        "error_arcsec",
+        "inlier_fraction",
+        "observations",
+        "rejected",
+        "status_counts",
+        "within_3sigma",
     ];
     expected.sort();
     let mut keys_sorted = keys.clone();
@@ -47,14 +62,20 @@ fn nominal_log_summary_csv_and_error_within_3_sigma() {
     let epochs = json["epochs"].as_u64().unwrap();
     assert!(epochs >= 1150, "{epochs} epochs in 120 s at 100 ms");
     let within = json["within_3sigma"].as_f64().unwrap();
-    eprintln!("measured: within 3σ {within}, error {}", json["error_arcsec"]);
+    eprintln!(
+        "measured: within 3σ {within}, error {}",
+        json["error_arcsec"]
+    );
     assert!(within >= 0.99, "{within}");
     assert!(json["alerts"].as_array().unwrap().is_empty());
     assert_eq!(json["status_counts"]["ok"].as_u64().unwrap(), epochs);
     let csv_text = std::fs::read_to_string(&csv).unwrap();
     let mut rows = csv_text.lines();
     let header = rows.next().unwrap();
-    assert!(header.starts_with("t_ns,t_s,qw,qx,qy,qz,roll_321_deg"), "{header}");
+    assert!(
+        header.starts_with("t_ns,t_s,qw,qx,qy,qz,roll_321_deg"),
+        "{header}"
+    );
     assert!(header.ends_with(",error_arcsec"), "{header}");
     assert_eq!(rows.count() as u64, epochs);
     let n_lines = std::fs::read_to_string(&lines).unwrap().lines().count() as u64;

@@ -103,7 +103,10 @@ fn out_writes_a_log_that_reads_back_through_the_decoder() {
     assert!(ended && reader.ended_cleanly());
     assert!(reader.warnings().is_empty(), "{:?}", reader.warnings());
     assert_eq!(decoded.len(), expected.len());
-    assert!(decoded == expected, "the log holds the simulator's messages, in order");
+    assert!(
+        decoded == expected,
+        "the log holds the simulator's messages, in order"
+    );
 
     let mut by_type: HashMap<&str, u64> = HashMap::new();
     for msg in &decoded {
@@ -130,7 +133,10 @@ fn out_writes_a_log_that_reads_back_through_the_decoder() {
     let period = config.period_ms as i64 * 1_000_000;
     let latency = config.latency_ms as i64 * 1_000_000;
     assert_eq!(ticks.len(), 1);
-    assert_eq!(ticks[0], (newest + period - 1).div_euclid(period) * period + latency);
+    assert_eq!(
+        ticks[0],
+        (newest + period - 1).div_euclid(period) * period + latency
+    );
 }
 
 #[test]

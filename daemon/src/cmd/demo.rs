@@ -190,7 +190,9 @@ async fn live(
         .context("the feed printer panicked")
         .map_err(failed)?;
     if let Some(err) = summary.core.record_error {
-        return Err(failed(anyhow::anyhow!("the recording is incomplete: {err}")));
+        return Err(failed(anyhow::anyhow!(
+            "the recording is incomplete: {err}"
+        )));
     }
     Ok((sent, live_feed))
 }
@@ -293,7 +295,7 @@ fn report(log: &Path, out_dir: &Path, live: &LiveFeed) -> Result<(), Failure> {
     let same = live.skipped == 0 && live.solutions == run.solutions && live.alerts == run.alerts;
     if same {
         println!(
-            "# replay of the recording: {} solutions and {} alerts, identical to the live feed",
+            "# replay of the recording: {} solutions and {} alert messages, identical to the live feed",
             run.solutions.len(),
             run.alerts.len()
         );

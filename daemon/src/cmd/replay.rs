@@ -172,9 +172,11 @@ pub fn run(args: &ReplayArgs) -> Result<(), Failure> {
 fn progress_bar(len: u64) -> ProgressBar {
     let bar = ProgressBar::with_draw_target(Some(len), ProgressDrawTarget::stderr());
     bar.set_style(
-        ProgressStyle::with_template("{elapsed_precise} [{bar:40}] {bytes}/{total_bytes} eta {eta}")
-            .unwrap_or_else(|_| ProgressStyle::default_bar())
-            .progress_chars("=> "),
+        ProgressStyle::with_template(
+            "{elapsed_precise} [{bar:40}] {bytes}/{total_bytes} eta {eta}",
+        )
+        .unwrap_or_else(|_| ProgressStyle::default_bar())
+        .progress_chars("=> "),
     );
     bar
 }
@@ -203,8 +205,8 @@ fn report_damage(path: &Path, run: &ReplayRun) {
 
 /// Outputs written after the replay: CSV, summary, report, AEM; then the exit decision.
 fn finish(args: &ReplayArgs, run: &ReplayRun) -> Result<(), Failure> {
-    let errors = (!run.truth.is_empty())
-        .then(|| replay::errors_against_truth(&run.solutions, &run.truth));
+    let errors =
+        (!run.truth.is_empty()).then(|| replay::errors_against_truth(&run.solutions, &run.truth));
     let error_arcsec: Option<Vec<Option<f64>>> = errors
         .as_ref()
         .map(|errors| errors.iter().map(|e| e.map(|e| e.arcsec)).collect());
@@ -291,7 +293,9 @@ fn serve_replay(
             .await
             .with_context(|| format!("cannot listen on tcp {}", serve_config.listen))
             .map_err(Failure::Failed)?;
-        let local = tcp.local_addr().map_err(|err| Failure::Failed(err.into()))?;
+        let local = tcp
+            .local_addr()
+            .map_err(|err| Failure::Failed(err.into()))?;
         println!("listening tcp {local}");
         let _ = std::io::stdout().flush();
         let counters = Arc::new(Counters::default());

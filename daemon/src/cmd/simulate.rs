@@ -114,12 +114,13 @@ pub fn run(args: &SimulateArgs) -> Result<(), Failure> {
     let token_text = token
         .as_ref()
         .map(|t| String::from_utf8_lossy(t.as_bytes()).into_owned());
-    let report = feed::stream_to(sim, addr, args.speed, token_text.as_deref()).map_err(|err| {
-        match err {
+    let report =
+        feed::stream_to(sim, addr, args.speed, token_text.as_deref()).map_err(|err| match err {
             feed::FeedError::Speed(_) => Failure::BadInput(err.into()),
-            other => Failure::Failed(anyhow::Error::new(other).context(format!("streaming to {to}"))),
-        }
-    })?;
+            other => {
+                Failure::Failed(anyhow::Error::new(other).context(format!("streaming to {to}")))
+            }
+        })?;
     println!(
         "sent to {to}: {} in {:.2} s; rejected {}",
         counts_text(&report.sent),
@@ -160,7 +161,9 @@ fn read_token(path: Option<&PathBuf>) -> Result<Option<Token>, Failure> {
             let text = std::fs::read_to_string(path)
                 .with_context(|| format!("cannot read token file {}", path.display()))
                 .map_err(Failure::BadInput)?;
-            Ok(Some(Token::new(&text).map_err(|err| Failure::BadInput(err.into()))?))
+            Ok(Some(
+                Token::new(&text).map_err(|err| Failure::BadInput(err.into()))?,
+            ))
         }
         None => std::env::var(TOKEN_ENV)
             .ok()

@@ -100,7 +100,8 @@ pub fn resolve_config(
 ) -> Result<ResolvedConfig, ReplayError> {
     let (table, mut source) = match config_file {
         Some(path) => (
-            estimator_table(Some(path), flags).map_err(|err| ReplayError::Config(err.to_string()))?,
+            estimator_table(Some(path), flags)
+                .map_err(|err| ReplayError::Config(err.to_string()))?,
             format!(
                 "[estimator] of {} (instead of the one recorded in the log)",
                 path.display()
@@ -144,8 +145,8 @@ pub fn errors_against_truth(solutions: &[Solution], truth: &TruthTrack) -> Vec<O
             }
             let q_true = truth.at(solution.t)?;
             let err = truth::attitude_error(&truth::unit_q(solution.q), &q_true);
-            let within = truth::mahalanobis2(&err, &solution.cov)
-                .is_some_and(|m2| m2 <= CHI2_3DOF_3SIGMA);
+            let within =
+                truth::mahalanobis2(&err, &solution.cov).is_some_and(|m2| m2 <= CHI2_3DOF_3SIGMA);
             Some(EpochError {
                 arcsec: err.norm() * truth::ARCSEC_PER_RAD,
                 within_3sigma: within,

@@ -175,10 +175,13 @@ pub fn run(
     let mut outputs = Vec::new();
     let mut n_decode_rejects = 0u64;
     loop {
-        let record = log.reader.next_record().map_err(|source| ReplayError::Read {
-            path: log.path.clone(),
-            source,
-        })?;
+        let record = log
+            .reader
+            .next_record()
+            .map_err(|source| ReplayError::Read {
+                path: log.path.clone(),
+                source,
+            })?;
         let Some(record) = record else { break };
         let input = match record_input(&record) {
             Ok(Some(input)) => input,

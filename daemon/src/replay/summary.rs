@@ -151,8 +151,7 @@ impl Summary {
         let fractions = solutions.iter().map(|s| s.inlier_fraction);
         let inlier_fraction = InlierStats {
             min: fractions.clone().reduce(f64::min),
-            mean: (!solutions.is_empty())
-                .then(|| fractions.sum::<f64>() / solutions.len() as f64),
+            mean: (!solutions.is_empty()).then(|| fractions.sum::<f64>() / solutions.len() as f64),
         };
         let (error_arcsec, within_3sigma) = match errors {
             Some(errors) => {

@@ -306,15 +306,13 @@ pub fn stream_to(
         encode_frame_into(&Message::Status(Status::request()), &mut frame);
         out.write_all(&frame)?;
         out.flush()?;
-        let report = loop {
-            match heard_rx.recv_timeout(SETTLE_LIMIT) {
-                Ok(Heard::Status(report)) => break Some(report),
-                Ok(Heard::Rejects(n, reasons)) => {
-                    tally = Some((n, reasons));
-                    break None;
-                }
-                Err(_) => break None,
+        let report = match heard_rx.recv_timeout(SETTLE_LIMIT) {
+            Ok(Heard::Status(report)) => Some(report),
+            Ok(Heard::Rejects(n, reasons)) => {
+                tally = Some((n, reasons));
+                None
             }
+            Err(_) => None,
         };
         let Some(report) = report else { break };
         let total = report.accepted + report.rejected + report.dropped;
