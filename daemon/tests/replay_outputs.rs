@@ -15,6 +15,7 @@ fn nominal_log_summary_csv_and_error_within_3_sigma() {
         .unwrap_or_else(|| dir.join("nominal.wlog"));
     write_sim_log(&log, &scenario, &estimator_table(&scenario));
     let (summary, csv, lines) = (dir.join("s.json"), dir.join("e.csv"), dir.join("o.jsonl"));
+    let (svg, aem) = (dir.join("r.svg"), dir.join("a.aem"));
     let out = replay(&[
         log.to_str().unwrap(),
         "--summary",
@@ -23,6 +24,12 @@ fn nominal_log_summary_csv_and_error_within_3_sigma() {
         csv.to_str().unwrap(),
         "--solutions",
         lines.to_str().unwrap(),
+        "--report",
+        svg.to_str().unwrap(),
+        "--aem",
+        aem.to_str().unwrap(),
+        "--utc-epoch",
+        "2026-12-01T00:00:00Z",
         "--fail-on-alert",
         // 1 s windows over the 1 s slew ramps exceed 3σ on ~5 % of epochs
         // (measured; the propagation's error model): short windows for this check.
@@ -78,6 +85,33 @@ fn nominal_log_summary_csv_and_error_within_3_sigma() {
     );
     assert!(header.ends_with(",error_arcsec"), "{header}");
     assert_eq!(rows.count() as u64, epochs);
+    // The report is well-formed XML holding the error series; the AEM has
+    // one data line per epoch (all `ok` here) between DATA_START and DATA_STOP.
+    let svg_text = std::fs::read_to_string(&svg).unwrap();
+    let mut reader = quick_xml::Reader::from_str(&svg_text);
+    let mut ids = Vec::new();
+    loop {
+        match reader.read_event().expect("well-formed SVG") {
+            quick_xml::events::Event::Eof => break,
+            quick_xml::events::Event::Start(e) | quick_xml::events::Event::Empty(e) => {
+                if let Some(id) = e.try_get_attribute("id").unwrap() {
+                    ids.push(id.value.to_string());
+                }
+            }
+            _ => {}
+        }
+    }
+    assert!(ids.iter().any(|id| id == "series-error"), "{ids:?}");
+    let aem_text = std::fs::read_to_string(&aem).unwrap();
+    let data: Vec<&str> = aem_text
+        .lines()
+        .skip_while(|l| l.trim() != "DATA_START")
+        .skip(1)
+        .take_while(|l| l.trim() != "DATA_STOP")
+        .filter(|l| !l.trim().is_empty() && !l.starts_with("COMMENT"))
+        .collect();
+    assert_eq!(data.len() as u64, epochs);
+    assert!(data[0].starts_with("2026-12-01T00:00:00"), "{}", data[0]);
     let n_lines = std::fs::read_to_string(&lines).unwrap().lines().count() as u64;
     assert_eq!(n_lines, epochs, "no alert: one line per solution");
 }

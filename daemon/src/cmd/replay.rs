@@ -27,7 +27,9 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use tokio::sync::broadcast;
 use wahbad::core_thread::Published;
 use wahbad::estimator::Output;
+use wahbad::replay::truth::ARCSEC_PER_RAD;
 use wahbad::replay::{self, output, LogInput, ReplayError, ReplayRun, RunOptions, Summary};
+use wahbad::report::{self, aem::AemError, aem::AemOptions};
 use wahbad::serve::Counters;
 use wahbad::settings::{EstimatorFlags, ServeArgs, ServeConfig, TOKEN_ENV};
 use wahbad_protocol::{encode_frame, Message};
@@ -114,6 +116,7 @@ pub fn run(args: &ReplayArgs) -> Result<(), Failure> {
         log.header().program,
         resolved.source
     );
+    let inlier_level = resolved.config.alerts.inlier_fraction.level;
     let mut solutions_out = args
         .solutions
         .as_deref()
@@ -166,7 +169,7 @@ pub fn run(args: &ReplayArgs) -> Result<(), Failure> {
             .map_err(Failure::Failed)?;
     }
     report_damage(&args.log, &run);
-    finish(args, &run)
+    finish(args, &run, inlier_level)
 }
 
 fn progress_bar(len: u64) -> ProgressBar {
@@ -204,7 +207,7 @@ fn report_damage(path: &Path, run: &ReplayRun) {
 }
 
 /// Outputs written after the replay: CSV, summary, report, AEM; then the exit decision.
-fn finish(args: &ReplayArgs, run: &ReplayRun) -> Result<(), Failure> {
+fn finish(args: &ReplayArgs, run: &ReplayRun, inlier_level: f64) -> Result<(), Failure> {
     let errors =
         (!run.truth.is_empty()).then(|| replay::errors_against_truth(&run.solutions, &run.truth));
     let error_arcsec: Option<Vec<Option<f64>>> = errors
@@ -226,7 +229,7 @@ fn finish(args: &ReplayArgs, run: &ReplayRun) -> Result<(), Failure> {
             .with_context(|| format!("cannot write {}", path.display()))
             .map_err(Failure::Failed)?;
     }
-    extra_outputs(args, run, error_arcsec.as_deref())?;
+    extra_outputs(args, run, error_arcsec.as_deref(), inlier_level)?;
     print!("{}", summary.human());
     if args.fail_on_alert && summary.any_alert() {
         return Err(Failure::Failed(anyhow::anyhow!(
@@ -242,13 +245,50 @@ fn extra_outputs(
     args: &ReplayArgs,
     run: &ReplayRun,
     error_arcsec: Option<&[Option<f64>]>,
+    inlier_level: f64,
 ) -> Result<(), Failure> {
-    let _ = error_arcsec;
-    if args.report.is_some() || args.aem.is_some() {
-        let _ = run;
-        return Err(Failure::Failed(anyhow::anyhow!(
-            "--report and --aem are not available in this build yet"
-        )));
+    if let Some(path) = &args.report {
+        let error_rad: Option<Vec<f64>> = error_arcsec.map(|errors| {
+            errors
+                .iter()
+                .map(|e| e.map_or(f64::NAN, |arcsec| arcsec / ARCSEC_PER_RAD))
+                .collect()
+        });
+        let title = format!(
+            "wahbad replay of {}",
+            args.log
+                .file_name()
+                .map(|name| name.to_string_lossy().into_owned())
+                .unwrap_or_default()
+        );
+        let svg = report::svg::render(
+            &run.solutions,
+            &run.alerts,
+            error_rad.as_deref(),
+            inlier_level,
+            &title,
+        );
+        std::fs::write(path, svg)
+            .with_context(|| format!("cannot write {}", path.display()))
+            .map_err(Failure::Failed)?;
+    }
+    if let Some(path) = &args.aem {
+        let mut opts = AemOptions::default();
+        match &args.utc_epoch {
+            Some(epoch) => opts.utc_epoch = epoch.clone(),
+            None => eprintln!(
+                "wahbad: note: no --utc-epoch: bench time 0 is written as {} in {}",
+                opts.utc_epoch,
+                path.display()
+            ),
+        }
+        let text = report::aem::write(&run.solutions, &opts).map_err(|err| match err {
+            AemError::BadUtcEpoch { .. } => Failure::BadInput(err.into()),
+            _ => Failure::Failed(anyhow::Error::from(err).context("cannot write the AEM")),
+        })?;
+        std::fs::write(path, text)
+            .with_context(|| format!("cannot write {}", path.display()))
+            .map_err(Failure::Failed)?;
     }
     Ok(())
 }

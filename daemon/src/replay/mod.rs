@@ -159,7 +159,7 @@ pub fn errors_against_truth(solutions: &[Solution], truth: &TruthTrack) -> Vec<O
 mod tests {
     use super::*;
 
-    fn header(config: &str) -> LogHeader {
+    fn log_header(config: &str) -> LogHeader {
         LogHeader {
             created_ns: 0,
             program: "test".into(),
@@ -171,7 +171,7 @@ mod tests {
 
     #[test]
     fn recorded_configuration_unless_overridden() {
-        let header = header("period_ms = 200\nspan_ms = 2000\n");
+        let header = log_header("period_ms = 200\nspan_ms = 2000\n");
         let resolved = resolve_config(&header, None, &EstimatorFlags::default()).unwrap();
         assert_eq!(resolved.config.period_ms, 200);
         assert_eq!(resolved.source, "recorded in the log header");
@@ -183,7 +183,8 @@ mod tests {
         assert_eq!(resolved.config.period_ms, 50);
         assert_eq!(resolved.config.span_ms, 2000, "the rest stays recorded");
         assert!(resolved.source.ends_with("overridden by --period-ms 50"));
-        let err = resolve_config(&header("period_ms = \"x\""), None, &flags).unwrap_err();
+        let bad = log_header("period_ms = \"x\"");
+        let err = resolve_config(&bad, None, &flags).unwrap_err();
         assert!(err.is_bad_input(), "{err}");
     }
 }

@@ -185,22 +185,13 @@ pub fn write_created_at(
     let stop = stamp(last.0, last.1)?;
 
     let mut out = String::with_capacity(200 + rows.len() * 90);
-    let mut kv = |key: &str, value: &str| {
-        out.push_str(key);
-        out.push_str(" = ");
-        out.push_str(value);
-        out.push('\n');
-    };
-    kv("CCSDS_AEM_VERS", "1.0");
-    kv(
-        "COMMENT",
-        &format!(
-            "Attitude estimated by wahbad {} on a test bench; bench time 0 = {epoch_text} UTC",
-            env!("CARGO_PKG_VERSION")
-        ),
-    );
-    kv("CREATION_DATE", &creation);
-    kv("ORIGINATOR", &opts.originator);
+    kv(&mut out, "CCSDS_AEM_VERS", "1.0");
+    out.push_str(&format!(
+        "COMMENT Attitude estimated by wahbad {} on a test bench; bench time 0 = {epoch_text} UTC\n",
+        env!("CARGO_PKG_VERSION")
+    ));
+    kv(&mut out, "CREATION_DATE", &creation);
+    kv(&mut out, "ORIGINATOR", &opts.originator);
     out.push('\n');
     out.push_str("META_START\n");
     for line in [
@@ -213,22 +204,16 @@ pub fn write_created_at(
         out.push_str(&line);
         out.push('\n');
     }
-    let mut kv = |key: &str, value: &str| {
-        out.push_str(key);
-        out.push_str(" = ");
-        out.push_str(value);
-        out.push('\n');
-    };
-    kv("OBJECT_NAME", &opts.object_name);
-    kv("OBJECT_ID", &opts.object_id);
-    kv("REF_FRAME_A", REF_FRAME_A);
-    kv("REF_FRAME_B", REF_FRAME_B);
-    kv("ATTITUDE_DIR", "A2B");
-    kv("TIME_SYSTEM", "UTC");
-    kv("START_TIME", &start);
-    kv("STOP_TIME", &stop);
-    kv("ATTITUDE_TYPE", "QUATERNION");
-    kv("QUATERNION_TYPE", "LAST");
+    kv(&mut out, "OBJECT_NAME", &opts.object_name);
+    kv(&mut out, "OBJECT_ID", &opts.object_id);
+    kv(&mut out, "REF_FRAME_A", REF_FRAME_A);
+    kv(&mut out, "REF_FRAME_B", REF_FRAME_B);
+    kv(&mut out, "ATTITUDE_DIR", "A2B");
+    kv(&mut out, "TIME_SYSTEM", "UTC");
+    kv(&mut out, "START_TIME", &start);
+    kv(&mut out, "STOP_TIME", &stop);
+    kv(&mut out, "ATTITUDE_TYPE", "QUATERNION");
+    kv(&mut out, "QUATERNION_TYPE", "LAST");
     out.push_str("META_STOP\n\nDATA_START\n");
     for (t, unix_ns, q) in rows {
         let epoch = stamp(t, unix_ns)?;
@@ -239,6 +224,14 @@ pub fn write_created_at(
     }
     out.push_str("DATA_STOP\n");
     Ok(out)
+}
+
+/// One `KEY = value` line.
+fn kv(out: &mut String, key: &str, value: &str) {
+    out.push_str(key);
+    out.push_str(" = ");
+    out.push_str(value);
+    out.push('\n');
 }
 
 /// Whether a solution of this status goes into the message.

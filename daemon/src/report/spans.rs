@@ -147,26 +147,21 @@ mod tests {
             alert(7.0, "sensor_inliers", Some("sun"), AlertState::Raised),
         ];
         let spans = alert_spans(&alerts, 0.0, 10.0);
-        let summary: Vec<(&str, Option<&str>, f64, f64, bool, bool)> = spans
-            .iter()
-            .map(|s| {
-                (
-                    s.kind.as_str(),
-                    s.sensor.as_deref(),
-                    s.start_s,
-                    s.end_s,
-                    s.open,
-                    s.raised_before_start,
-                )
-            })
-            .collect();
+        let span = |kind: &str, sensor: Option<&str>, start_s, end_s, open, before| AlertSpan {
+            kind: kind.into(),
+            sensor: sensor.map(Into::into),
+            start_s,
+            end_s,
+            open,
+            raised_before_start: before,
+        };
         assert_eq!(
-            summary,
+            spans,
             vec![
-                ("sensor_inliers", Some("sun"), 2.0, 6.0, false, false),
-                ("sensor_inliers", Some("sun"), 7.0, 10.0, true, false),
-                ("inlier_fraction", None, 3.0, 10.0, true, false),
-                ("sensor_inliers", Some("mag"), 0.0, 4.0, false, true),
+                span("sensor_inliers", Some("sun"), 2.0, 6.0, false, false),
+                span("sensor_inliers", Some("sun"), 7.0, 10.0, true, false),
+                span("inlier_fraction", None, 3.0, 10.0, true, false),
+                span("sensor_inliers", Some("mag"), 0.0, 4.0, false, true),
             ]
         );
     }

@@ -29,7 +29,7 @@ const WIDTH: f64 = 960.0;
 const LEFT: f64 = 150.0;
 const RIGHT: f64 = 24.0;
 const PLOT_W: f64 = WIDTH - LEFT - RIGHT;
-const TOP: f64 = 92.0;
+const TOP: f64 = 118.0;
 const ERROR_H: f64 = 220.0;
 const FRACTION_H: f64 = 110.0;
 const ROW_H: f64 = 16.0;
@@ -127,9 +127,10 @@ pub fn render(
             },
         );
     }
-    outlier_panel(&mut svg, &plot, &layout, solutions, &times, &sensors);
+    let covers = epoch_covers(&plot.cols, &times);
+    outlier_panel(&mut svg, &plot, &layout, solutions, &covers, &sensors);
     alert_panel(&mut svg, &plot, &layout, &spans, &alert_rows);
-    status_strip(&mut svg, &plot, &layout, solutions, &times);
+    status_strip(&mut svg, &plot, &layout, solutions, &covers);
     time_axis(&mut svg, &plot, &layout);
     caption(&mut svg, &layout, error_rad.is_some());
     svg.push_str("</svg>\n");
@@ -161,7 +162,7 @@ impl Layout {
         let alert_h = n_alert_rows as f64 * ROW_H;
         let strip_y = alert_y + alert_h + 12.0;
         let axis_y = strip_y + STRIP_H;
-        let caption_y = axis_y + 48.0;
+        let caption_y = axis_y + 50.0;
         Layout {
             error_y,
             fraction_y,
@@ -173,7 +174,7 @@ impl Layout {
             axis_y,
             legend_y: 74.0,
             caption_y,
-            height: caption_y + 36.0,
+            height: caption_y + 52.0,
         }
     }
 }
@@ -221,7 +222,9 @@ impl Scale {
             }
             Scale::Unit => value,
         };
-        y0 + h * (1.0 - u.clamp(0.0, 1.0))
+        // A NaN (e.g. an unset level) sits on the axis rather than in the file.
+        let u = if u.is_nan() { 0.0 } else { u.clamp(0.0, 1.0) };
+        y0 + h * (1.0 - u)
     }
 }
 
@@ -496,7 +499,7 @@ fn outlier_panel(
     plot: &Plot,
     layout: &Layout,
     solutions: &[Solution],
-    times: &[f64],
+    covers: &[(usize, usize)],
     sensors: &[String],
 ) {
     let y0 = layout.outlier_y;
@@ -514,9 +517,9 @@ fn outlier_panel(
         let row_y = y0 + row_idx as f64 * ROW_H;
         let mut flags = vec![false; plot.cols.n_cols()];
         let mut n_epochs = 0usize;
-        for (solution, &t) in solutions.iter().zip(times) {
+        for (solution, &(first, last)) in solutions.iter().zip(covers) {
             if has_outliers(solution, sensor) {
-                flags[plot.cols.index(t)] = true;
+                flags[first..=last].iter_mut().for_each(|f| *f = true);
                 n_epochs += 1;
             }
         }
@@ -543,6 +546,28 @@ fn row_label(svg: &mut String, row_y: f64, label: &str) {
         row_y + ROW_H - 4.0,
         escape(label)
     );
+}
+
+/// The columns `(first, last)` each epoch stands for: from its own column to
+/// the one before the next epoch's, so runs of epochs draw as unbroken bars
+/// at any zoom; across a gap longer than twice the median epoch spacing (a
+/// dropout) an epoch covers only its own column.
+fn epoch_covers(cols: &Columns, times: &[f64]) -> Vec<(usize, usize)> {
+    let mut steps: Vec<f64> = times.windows(2).map(|w| w[1] - w[0]).collect();
+    steps.sort_by(f64::total_cmp);
+    let median_step = steps.get(steps.len() / 2).copied().unwrap_or(0.0);
+    (0..times.len())
+        .map(|idx| {
+            let first = cols.index(times[idx]);
+            let last = match times.get(idx + 1) {
+                Some(&next) if next - times[idx] <= 2.0 * median_step => {
+                    cols.index(next).saturating_sub(1).max(first)
+                }
+                _ => first,
+            };
+            (first, last)
+        })
+        .collect()
 }
 
 /// Distinct (kind, sensor) pairs of the spans, in order.
@@ -645,20 +670,13 @@ fn status_strip(
     plot: &Plot,
     layout: &Layout,
     solutions: &[Solution],
-    times: &[f64],
+    covers: &[(usize, usize)],
 ) {
     let y0 = layout.strip_y;
     let mut cells: Vec<Option<SolutionStatus>> = vec![None; plot.cols.n_cols()];
-    for (solution, &t) in solutions.iter().zip(times) {
-        let cell = &mut cells[plot.cols.index(t)];
-        *cell = Some(cell.map_or(solution.status, |s| worse(s, solution.status)));
-    }
-    // Empty columns take the status before them, so the strip has no holes.
-    let mut last = None;
-    for cell in cells.iter_mut() {
-        match cell {
-            Some(status) => last = Some(*status),
-            None => *cell = last,
+    for (solution, &(first, last)) in solutions.iter().zip(covers) {
+        for cell in &mut cells[first..=last] {
+            *cell = Some(cell.map_or(solution.status, |s| worse(s, solution.status)));
         }
     }
     let _ = writeln!(
@@ -752,15 +770,17 @@ fn time_axis(svg: &mut String, plot: &Plot, layout: &Layout) {
 }
 
 fn caption(svg: &mut String, layout: &Layout, has_truth: bool) {
-    let first = if has_truth {
-        "Error: rotation angle between estimate and truth. Envelope: 3σ with σ = √trace(cov), \
-         the RSS of the per-axis 1σ; the error is an angle (≥ 0), so the envelope is one-sided."
+    let lines: &[&str] = if has_truth {
+        &[
+            "Error: rotation angle between the estimate and truth. Envelope: 3σ with σ = √trace(cov),",
+            "the RSS of the per-axis 1σ; the error is an angle (≥ 0), so the envelope is one-sided.",
+        ]
     } else {
-        "No truth in this log: the top panel shows the 1σ of each body axis, √cov[i][i]."
+        &["No truth in this log: the top panel shows the 1σ of each body axis, √cov[i][i]."]
     };
-    let second = "Each pixel column shows the min and max of the epochs it covers; \
-                  unobservable and insufficient epochs carry no envelope.";
-    for (idx, line) in [first, second].iter().enumerate() {
+    let last = "Each pixel column shows the min and max of the epochs it covers; \
+                unobservable and insufficient epochs carry no σ.";
+    for (idx, line) in lines.iter().chain([&last]).enumerate() {
         let _ = writeln!(
             svg,
             r#"<text class="caption" x="24" y="{:.1}" font-size="11" fill="{MUTED}">{}</text>"#,
@@ -819,6 +839,16 @@ mod tests {
             log_scale([100.0].into_iter()),
             Scale::Log { lo: 2, hi: 3 }
         ));
+    }
+
+    #[test]
+    fn coordinates_are_always_numbers() {
+        assert_eq!(Scale::Unit.y(10.0, 100.0, f64::NAN), 110.0);
+        assert_eq!(Scale::Unit.y(10.0, 100.0, 2.0), 10.0);
+        let log = Scale::Log { lo: 0, hi: 2 };
+        assert_eq!(log.y(0.0, 100.0, -5.0), 100.0);
+        assert_eq!(log.y(0.0, 100.0, f64::INFINITY), 0.0);
+        assert_eq!(log.y(0.0, 100.0, 10.0), 50.0);
     }
 
     #[test]
