@@ -81,7 +81,7 @@ pub fn scenario_from(args: &SimulateArgs) -> Result<Scenario, Failure> {
     if let Some(n) = args.stars_per_frame {
         scenario.star_cam.stars_per_frame = n;
     }
-    scenario.validate().map_err(|err| bad_input(err))?;
+    scenario.validate().map_err(bad_input)?;
     Ok(scenario)
 }
 
