@@ -29,6 +29,12 @@ enum Command {
     Serve(cmd::serve::ServeCmdArgs),
     /// Subscribe to a running daemon and print its feed.
     Watch(cmd::watch::WatchArgs),
+    /// Simulate the bench scenario (air-bearing table, star camera, magnetometer,
+    /// sun sensor, gyro, faults, truth): write a log or stream into a daemon.
+    Simulate(cmd::simulate::SimulateArgs),
+    /// The whole program in one command: an in-process daemon fed by the
+    /// simulated bench scenario with faults, its live feed, then a report.
+    Demo(cmd::demo::DemoArgs),
     /// Run a recorded log through the estimator again: solutions, CSV,
     /// summary, error against truth; optionally paced and republished.
     Replay(cmd::replay::ReplayArgs),
@@ -46,6 +52,8 @@ fn main() -> ExitCode {
         Command::Study(args) => cmd::study::run(args),
         Command::Serve(args) => cmd::serve::run(args),
         Command::Watch(args) => cmd::watch::run(args),
+        Command::Simulate(args) => cmd::simulate::run(args),
+        Command::Demo(args) => cmd::demo::run(args),
         Command::Replay(args) => cmd::replay::run(args),
     };
     match result {
@@ -56,11 +64,13 @@ fn main() -> ExitCode {
 
 /// Logs go to stderr; `RUST_LOG` overrides the default level, which is `info`
 /// for the long-running daemon (its connection and alert lines) and `warn`
-/// for the one-shot commands. Colour only when stderr is a terminal.
+/// for the one-shot commands; `error` for the demo, which prints its alerts
+/// itself (warn-level copies would double them). Colour only on a terminal.
 fn init_logging(command: &Command) {
     use std::io::IsTerminal;
     let default_level = match command {
         Command::Serve(_) => "info",
+        Command::Demo(_) => "error",
         _ => "warn",
     };
     tracing_subscriber::fmt()

@@ -1,8 +1,10 @@
 //! Binary-only command modules: each turns validated flags into a library call
 //! and its output into files or stdout. `anyhow` lives here and in `main`.
 
+pub mod demo;
 pub mod replay;
 pub mod serve;
+pub mod simulate;
 pub mod solve;
 pub mod study;
 pub mod watch;

@@ -4,16 +4,18 @@
 //! timeline; defaults in [`scenario`]); [`Simulator`] turns it into a lazy,
 //! seeded, deterministic stream of protocol messages (`obs`, `rate`,
 //! `truth`) in data-time order, with ground truth for tests
-//! ([`Simulator::truth_at`], [`Simulator::fault_log`]). No I/O here: the
+//! ([`Simulator::truth_at`], [`Simulator::fault_log`]). No I/O outside [`feed`]: the
 //! `simulate` and `demo` commands write or stream the messages.
 //!
 //! - [`scenario`]: settings, defaults, presets, per-sensor settings for the estimator.
 //! - [`motion`]: rests and slews about body axes, closed-form truth and body rate.
 //! - [`faults`]: the named faults and the fault log records.
 //! - [`simulator`]: the merged message stream.
+//! - [`feed`]: a run into a log (`simulate --out`) or into a daemon (`--to`).
 //! - `sky`, `noise`: the stimulator's star field; angular noise on directions.
 
 pub mod faults;
+pub mod feed;
 pub mod motion;
 mod noise;
 pub mod scenario;
