@@ -226,6 +226,9 @@ pub struct Estimator {
     start_t: Option<i64>,
     /// The next epoch to solve, once the first observation arrived.
     next_epoch: Option<i64>,
+    /// The last epoch solved: epochs only move forward, even where the
+    /// epoch arithmetic saturates at the end of the i64 time line.
+    last_solved: Option<i64>,
     estimate: Option<Estimate>,
     force_cold: bool,
     inlier_alert: LevelAlert,
@@ -272,6 +275,7 @@ impl Estimator {
             newest_t: None,
             start_t: None,
             next_epoch: None,
+            last_solved: None,
             estimate: None,
             force_cold: true,
             inlier_alert: LevelAlert::from_config(&alerts.inlier_fraction),
@@ -535,7 +539,9 @@ impl Estimator {
             latency_ns,
             ..
         } = self.checked;
-        while epoch.saturating_add(latency_ns) <= newest {
+        while epoch.saturating_add(latency_ns) <= newest
+            && self.last_solved.is_none_or(|last| epoch > last)
+        {
             self.obs.prune(epoch.saturating_sub(span_ns));
             self.rates
                 .prune(epoch.saturating_sub(span_ns.max(period_ns)));
@@ -544,13 +550,18 @@ impl Estimator {
                 // Empty window: skip to the first epoch that can hold a buffered
                 // observation (all buffered ones are later than `epoch`).
                 self.force_cold = true;
-                epoch = match self.obs.first_t() {
+                let next = match self.obs.first_t() {
                     Some(t) => epoch_at_or_after(t, period_ns).max(epoch.saturating_add(period_ns)),
                     None => first_open_epoch(newest, period_ns, latency_ns),
                 };
+                if next <= epoch {
+                    break; // saturated: no later epoch exists
+                }
+                epoch = next;
                 continue;
             }
             self.solve_epoch(epoch, range, out);
+            self.last_solved = Some(epoch);
             epoch = epoch.saturating_add(period_ns);
         }
         self.next_epoch = Some(epoch);
