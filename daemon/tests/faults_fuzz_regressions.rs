@@ -1,9 +1,9 @@
 //! Findings of the fuzz targets in `fuzz/`, kept as ordinary tests so they
 //! stay fixed. Each names the target that found it and what went wrong.
 
-use wahbad::estimator::{Estimator, EstimatorConfig, Input, Output, SensorConfig};
+use wahbad::estimator::{Estimator, EstimatorConfig, IngestError, Input, Output, SensorConfig};
 use wahbad::solve::Method;
-use wahbad_protocol::{validate_obs, Obs};
+use wahbad_protocol::{validate_obs, validate_rate, Obs, Rate};
 
 fn obs_at(t: i64, seq: u64) -> Input {
     Input::Obs(
@@ -75,4 +75,53 @@ fn a_jump_across_the_whole_i64_time_line_costs_a_bounded_number_of_solves() {
         .count();
     // Each observation's window can hold it in ceil(S/P) + 1 epochs at most.
     assert!((1..=4).contains(&n_solutions), "{n_solutions} solutions");
+}
+
+/// Target `estimator`: a finite but absurd rate (-5.5e303 rad/s) passed
+/// validation, and carrying the previous estimate with it gave a solution
+/// whose `q` was NaN. Such rates are now rejected; ordinary ones still work.
+#[test]
+fn an_absurd_rate_is_rejected_and_no_solution_is_nan() {
+    let mut config = config();
+    config.period_ms = 1;
+    config.span_ms = 3;
+    config.latency_ms = 0;
+    let mut estimator = Estimator::new(config).unwrap();
+    let mut out = Vec::new();
+    let rate = |w: [f64; 3], seq: u64| {
+        Input::Rate(
+            validate_rate(&Rate {
+                sensor: "gyro".into(),
+                seq,
+                t: -217_000_000,
+                w,
+                token: None,
+            })
+            .unwrap(),
+        )
+    };
+    estimator.ingest(Input::Tick(0), &mut out).unwrap();
+    let err = estimator
+        .ingest(
+            rate([-5.508893606288651e303, 4.7e-62, 4.7e-62], 1),
+            &mut out,
+        )
+        .unwrap_err();
+    assert!(matches!(err, IngestError::RateTooLarge { .. }), "{err}");
+    estimator
+        .ingest(rate([0.1, 0.0, 0.0], 2), &mut out)
+        .unwrap();
+    estimator.ingest(obs_at(-217_000_000, 1), &mut out).unwrap();
+    estimator.ingest(Input::Tick(0), &mut out).unwrap();
+    let solutions: Vec<_> = out
+        .iter()
+        .filter_map(|o| match o {
+            Output::Solution(s) => Some(s),
+            Output::Alert(_) => None,
+        })
+        .collect();
+    assert!(solutions.len() >= 2, "{} solutions", solutions.len());
+    for s in solutions {
+        assert!(s.q.iter().all(|x| x.is_finite()), "{s:?}");
+    }
 }

@@ -135,7 +135,7 @@ fn dir(pick: Dir) -> [f64; 3] {
         Dir::Axis(a) => axis(a),
         Dir::NearAxis(a, e) => {
             let mut v = axis(a);
-            v[usize::from((a + 1) % 3)] = f64::from(e) * 1e-12;
+            v[(usize::from(a) + 1) % 3] = f64::from(e) * 1e-12;
             v
         }
         Dir::Raw(v) => v,

@@ -25,6 +25,8 @@
 //!   The `stale` alerts report the silence.
 //! - An observation with `t <= E₀ - S` for the oldest open epoch `E₀` is dropped
 //!   and counted (`dropped_too_old`); a later one, even if late, is used.
+//! - A rate component beyond [`MAX_RATE_RAD_S`] is rejected (it would turn
+//!   the propagation into NaN).
 //! - Per sensor, `t` must not decrease (equal times are allowed: several stars of
 //!   one frame) and `seq` must increase; otherwise the message is rejected.
 //!
@@ -172,7 +174,18 @@ pub enum IngestError {
         /// Sensor id.
         sensor: String,
     },
+    /// A rate component beyond [`MAX_RATE_RAD_S`]: finite, but no gyro
+    /// measures it, and propagating with it overflows to NaN.
+    #[error("sensor `{sensor}`: rate component beyond ±{MAX_RATE_RAD_S} rad/s")]
+    RateTooLarge {
+        /// Sensor id.
+        sensor: String,
+    },
 }
+
+/// Largest accepted rate component, rad/s (far beyond any gyro's range,
+/// which is at most a few thousand deg/s: common practice).
+pub const MAX_RATE_RAD_S: f64 = 1000.0;
 
 impl IngestError {
     /// The sensor id the rejected message carried.
@@ -182,7 +195,8 @@ impl IngestError {
             | IngestError::SeqNotIncreasing { sensor, .. }
             | IngestError::TooManySensors { sensor, .. }
             | IngestError::NoSigma { sensor }
-            | IngestError::Disabled { sensor } => sensor,
+            | IngestError::Disabled { sensor }
+            | IngestError::RateTooLarge { sensor } => sensor,
         }
     }
 }
@@ -478,6 +492,11 @@ impl Estimator {
     }
 
     fn ingest_rate(&mut self, rate: ValidRate, out: &mut Vec<Output>) -> Result<(), IngestError> {
+        if rate.w.iter().any(|w| w.abs() > MAX_RATE_RAD_S) {
+            return Err(IngestError::RateTooLarge {
+                sensor: rate.sensor,
+            });
+        }
         self.admit(&rate.sensor, rate.seq, rate.t, false, out)?;
         let cutoff = self
             .next_epoch
