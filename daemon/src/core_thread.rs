@@ -21,7 +21,7 @@ use std::time::{Duration, Instant};
 
 use crossbeam_channel::{Receiver, RecvTimeoutError, Sender, TrySendError};
 use tokio::sync::{broadcast, mpsc, Notify};
-use wahbad_protocol::{encode_frame, AlertState, Message, Reject};
+use wahbad_protocol::{encode_frame, try_encode_frame, AlertState, Message, Reject};
 
 use crate::estimator::{Estimator, Input, Output, Stats};
 use crate::record::{mask_token, unix_now_ns, LogWriter};
@@ -112,13 +112,25 @@ impl Published {
     fn encode(output: &Output) -> Published {
         match output {
             Output::Solution(solution) => {
-                let full = encode_frame(&Message::Solution(solution.clone()));
                 let lean = solution.verdicts.as_ref().map(|_| {
                     let mut lean = solution.clone();
                     lean.verdicts = None;
                     encode_frame(&Message::Solution(lean))
                 });
-                Published { full, lean }
+                // Many verdicts can exceed the 65536-byte frame limit, which
+                // every subscriber would refuse: such a solution goes without them.
+                match try_encode_frame(&Message::Solution(solution.clone())) {
+                    Ok(full) => Published { full, lean },
+                    Err(err) => {
+                        tracing::warn!(t = solution.t, %err, "solution sent without verdicts");
+                        let full = lean.unwrap_or_else(|| {
+                            let mut lean = solution.clone();
+                            lean.verdicts = None;
+                            encode_frame(&Message::Solution(lean))
+                        });
+                        Published { full, lean: None }
+                    }
+                }
             }
             Output::Alert(alert) => Published {
                 full: encode_frame(&Message::Alert(alert.clone())),

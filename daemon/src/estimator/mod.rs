@@ -25,6 +25,8 @@
 //!   The `stale` alerts report the silence.
 //! - An observation with `t <= E₀ - S` for the oldest open epoch `E₀` is dropped
 //!   and counted (`dropped_too_old`); a later one, even if late, is used.
+//! - A rate component beyond [`MAX_RATE_RAD_S`] is rejected (it would turn
+//!   the propagation into NaN).
 //! - Per sensor, `t` must not decrease (equal times are allowed: several stars of
 //!   one frame) and `seq` must increase; otherwise the message is rejected.
 //!
@@ -172,7 +174,18 @@ pub enum IngestError {
         /// Sensor id.
         sensor: String,
     },
+    /// A rate component beyond [`MAX_RATE_RAD_S`]: finite, but no gyro
+    /// measures it, and propagating with it overflows to NaN.
+    #[error("sensor `{sensor}`: rate component beyond ±{MAX_RATE_RAD_S} rad/s")]
+    RateTooLarge {
+        /// Sensor id.
+        sensor: String,
+    },
 }
+
+/// Largest accepted rate component, rad/s (far beyond any gyro's range,
+/// which is at most a few thousand deg/s: common practice).
+pub const MAX_RATE_RAD_S: f64 = 1000.0;
 
 impl IngestError {
     /// The sensor id the rejected message carried.
@@ -182,7 +195,8 @@ impl IngestError {
             | IngestError::SeqNotIncreasing { sensor, .. }
             | IngestError::TooManySensors { sensor, .. }
             | IngestError::NoSigma { sensor }
-            | IngestError::Disabled { sensor } => sensor,
+            | IngestError::Disabled { sensor }
+            | IngestError::RateTooLarge { sensor } => sensor,
         }
     }
 }
@@ -226,6 +240,9 @@ pub struct Estimator {
     start_t: Option<i64>,
     /// The next epoch to solve, once the first observation arrived.
     next_epoch: Option<i64>,
+    /// The last epoch solved: epochs only move forward, even where the
+    /// epoch arithmetic saturates at the end of the i64 time line.
+    last_solved: Option<i64>,
     estimate: Option<Estimate>,
     force_cold: bool,
     inlier_alert: LevelAlert,
@@ -272,6 +289,7 @@ impl Estimator {
             newest_t: None,
             start_t: None,
             next_epoch: None,
+            last_solved: None,
             estimate: None,
             force_cold: true,
             inlier_alert: LevelAlert::from_config(&alerts.inlier_fraction),
@@ -474,6 +492,11 @@ impl Estimator {
     }
 
     fn ingest_rate(&mut self, rate: ValidRate, out: &mut Vec<Output>) -> Result<(), IngestError> {
+        if rate.w.iter().any(|w| w.abs() > MAX_RATE_RAD_S) {
+            return Err(IngestError::RateTooLarge {
+                sensor: rate.sensor,
+            });
+        }
         self.admit(&rate.sensor, rate.seq, rate.t, false, out)?;
         let cutoff = self
             .next_epoch
@@ -535,7 +558,9 @@ impl Estimator {
             latency_ns,
             ..
         } = self.checked;
-        while epoch.saturating_add(latency_ns) <= newest {
+        while epoch.saturating_add(latency_ns) <= newest
+            && self.last_solved.is_none_or(|last| epoch > last)
+        {
             self.obs.prune(epoch.saturating_sub(span_ns));
             self.rates
                 .prune(epoch.saturating_sub(span_ns.max(period_ns)));
@@ -544,13 +569,18 @@ impl Estimator {
                 // Empty window: skip to the first epoch that can hold a buffered
                 // observation (all buffered ones are later than `epoch`).
                 self.force_cold = true;
-                epoch = match self.obs.first_t() {
+                let next = match self.obs.first_t() {
                     Some(t) => epoch_at_or_after(t, period_ns).max(epoch.saturating_add(period_ns)),
                     None => first_open_epoch(newest, period_ns, latency_ns),
                 };
+                if next <= epoch {
+                    break; // saturated: no later epoch exists
+                }
+                epoch = next;
                 continue;
             }
             self.solve_epoch(epoch, range, out);
+            self.last_solved = Some(epoch);
             epoch = epoch.saturating_add(period_ns);
         }
         self.next_epoch = Some(epoch);

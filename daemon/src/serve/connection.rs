@@ -2,9 +2,14 @@
 //!
 //! `read_frame` is cancel-safe (it may sit in a `select!`): bytes are moved
 //! into the decoder only after a read has completed, so a cancelled read
-//! loses nothing.
+//! loses nothing. A frame once started must be completed within the stall
+//! limit, if one is set ([`Connection::set_stall_limit`]), so a peer that
+//! stops mid-frame cannot hold its connection (and its slot) for ever.
 
 use std::io;
+use std::time::Duration;
+
+use tokio::time::Instant;
 
 use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, AsyncWriteExt, BufWriter};
 use wahbad_protocol::{decode_body, encode_frame_into, FrameDecoder, FrameError, Message};
@@ -20,6 +25,14 @@ pub enum ReadError {
     /// [`FrameError::can_continue`] and [`FrameError::error_code`].
     #[error(transparent)]
     Frame(#[from] FrameError),
+    /// A started frame was not completed within the stall limit.
+    #[error("frame not completed within {} ms ({buffered} bytes received)", limit.as_millis())]
+    Stalled {
+        /// Bytes of the incomplete frame received.
+        buffered: usize,
+        /// The stall limit.
+        limit: Duration,
+    },
 }
 
 /// One stream connection speaking the wahbad framing.
@@ -28,6 +41,10 @@ pub struct Connection<S> {
     decoder: FrameDecoder,
     read_buf: Vec<u8>,
     write_buf: Vec<u8>,
+    /// Time allowed to complete a started frame; `None`: no limit.
+    stall_limit: Option<Duration>,
+    /// When the bytes of the incomplete frame began to arrive.
+    partial_since: Option<Instant>,
 }
 
 impl<S: AsyncRead + AsyncWrite + Unpin> Connection<S> {
@@ -38,7 +55,14 @@ impl<S: AsyncRead + AsyncWrite + Unpin> Connection<S> {
             decoder: FrameDecoder::new(),
             read_buf: vec![0; 16 * 1024],
             write_buf: Vec::with_capacity(4096),
+            stall_limit: None,
+            partial_since: None,
         }
+    }
+
+    /// Sets the time a started frame has to be completed in (see [`ReadError::Stalled`]).
+    pub fn set_stall_limit(&mut self, limit: Option<Duration>) {
+        self.stall_limit = limit;
     }
 
     /// The next frame's body, exactly as it arrived; `None` when the peer
@@ -47,14 +71,32 @@ impl<S: AsyncRead + AsyncWrite + Unpin> Connection<S> {
     pub async fn read_frame(&mut self) -> Result<Option<Vec<u8>>, ReadError> {
         loop {
             if let Some(body) = self.decoder.next_frame()? {
-                return Ok(Some(body.to_vec()));
+                let body = body.to_vec();
+                // Bytes left over belong to a frame that starts now.
+                self.partial_since = (self.decoder.buffered() > 0).then(Instant::now);
+                return Ok(Some(body));
             }
-            let n_read = self.stream.read(&mut self.read_buf).await?;
+            let read = self.stream.read(&mut self.read_buf);
+            let n_read = match (self.stall_limit, self.partial_since) {
+                (Some(limit), Some(since)) => {
+                    match tokio::time::timeout_at(since + limit, read).await {
+                        Ok(got) => got?,
+                        Err(_elapsed) => {
+                            let buffered = self.decoder.buffered();
+                            return Err(ReadError::Stalled { buffered, limit });
+                        }
+                    }
+                }
+                _ => read.await?,
+            };
             if n_read == 0 {
                 self.decoder.finish()?;
                 return Ok(None);
             }
             self.decoder.push(&self.read_buf[..n_read]);
+            if self.partial_since.is_none() {
+                self.partial_since = Some(Instant::now());
+            }
         }
     }
 

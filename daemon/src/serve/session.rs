@@ -62,6 +62,11 @@ pub async fn serve_stream<S>(
             tracing::debug!(%peer, %err, "connection lost before hello");
             return;
         }
+        // No stall limit is set before the hello; the hello timeout covers it.
+        Ok(Err(err @ ReadError::Stalled { .. })) => {
+            tracing::debug!(%peer, %err, "connection stalled before hello");
+            return;
+        }
         Ok(Err(ReadError::Frame(err))) => {
             first_frame_error(&mut conn, &shared, &peer, err).await;
             return;
@@ -108,6 +113,8 @@ pub async fn serve_stream<S>(
         return;
     }
     let name = hello.name.clone().unwrap_or_default();
+    // After the hello, a started frame has as long as the hello had.
+    conn.set_stall_limit(Some(shared.config.limits.hello_timeout));
     match hello.role {
         Role::Source => {
             let Some(core) = core else { return };
@@ -380,6 +387,10 @@ async fn stream_error<S: AsyncRead + AsyncWrite + Unpin>(
 ) {
     match err {
         ReadError::Io(err) => tracing::debug!(peer, %err, "connection lost"),
+        ReadError::Stalled { .. } => {
+            tracing::info!(peer, %err, "connection closed: peer stalled mid-frame");
+            close_with_error(conn, ErrorCode::Timeout, err.to_string()).await;
+        }
         ReadError::Frame(err) => {
             bump(&shared.counters.framing_errors);
             tracing::info!(peer, %err, "connection closed: framing error");
