@@ -217,13 +217,12 @@ pub fn bench_scene(options: &SceneOptions) -> Scenario {
     let n_ms = options.duration_ms as usize + 1;
     let mut truth = Vec::with_capacity(n_ms);
     let mut q = q0;
-    let mut w = (options.rate)(0.0);
     for ms in 0..n_ms {
-        if ms % 10 == 0 {
-            w = (options.rate)(ms as f64 * 1e-3);
-        }
         truth.push(q);
-        // dA/dt = -[ω×]A: A(t + dt) = exp(-[ω×]dt) A(t).
+        // dA/dt = -[ω×]A: A(t + dt) = exp(-[ω×]dt) A(t), the smooth rate taken
+        // at the middle of each 1 ms step; the gyro below samples it every
+        // 10 ms, as a real one samples a continuously varying rate.
+        let w = (options.rate)((ms as f64 + 0.5) * 1e-3);
         q = UnitQuaternion::from_scaled_axis(-w * 1e-3) * q;
     }
     let stars: Vec<Vector3<f64>> = (0..12).map(|_| noise.unit_vector()).collect();
