@@ -97,6 +97,26 @@ impl Doc {
         let _ = writeln!(self.out, "><title>{}</title></{name}>", escape(tooltip));
     }
 
+    /// The chart's bold 20 px title with its baseline at `y`, and a 13 px
+    /// subtitle in `muted` 22 px below it.
+    pub fn heading(&mut self, x: f64, y: f64, title: &str, subtitle: &str, muted: &str) {
+        let bold: [Attr; 4] = [
+            ("x", &x),
+            ("y", &y),
+            ("font-size", &20),
+            ("font-weight", &"bold"),
+        ];
+        self.text("text", &bold, title);
+        let below = y + 22.0;
+        let plain: [Attr; 4] = [
+            ("x", &x),
+            ("y", &below),
+            ("font-size", &13),
+            ("fill", &muted),
+        ];
+        self.text("text", &plain, subtitle);
+    }
+
     /// A label turned to read upwards, centred on `(x, y)`.
     pub fn y_label(&mut self, x: f64, y: f64, font_size: f64, label: &str) {
         let turn = format!("rotate(-90 {x} {y})");

@@ -87,20 +87,12 @@ pub fn render(
         PAPER,
         &[("data-epochs", &n_epochs)],
     );
-    doc.text(
-        "text",
-        &[
-            ("x", &24),
-            ("y", &34),
-            ("font-size", &20),
-            ("font-weight", &"bold"),
-        ],
+    doc.heading(
+        24.0,
+        34.0,
         title,
-    );
-    doc.text(
-        "text",
-        &[("x", &24), ("y", &56), ("font-size", &13), ("fill", &MUTED)],
         &subtitle(solutions, alerts, &spans, t0, t1, error_rad.is_some()),
+        MUTED,
     );
     status_legend(&mut doc, layout.legend_y);
 

@@ -40,26 +40,7 @@ pub fn render(rows: &[Row], title: &str, subtitle: &str) -> String {
         + BOTTOM;
 
     let mut doc = Doc::new(width, height, INK, PAPER, &[]);
-    doc.text(
-        "text",
-        &[
-            ("x", &LEFT),
-            ("y", &32),
-            ("font-size", &20),
-            ("font-weight", &"bold"),
-        ],
-        title,
-    );
-    doc.text(
-        "text",
-        &[
-            ("x", &LEFT),
-            ("y", &54),
-            ("font-size", &13),
-            ("fill", &MUTED),
-        ],
-        subtitle,
-    );
+    doc.heading(LEFT, 32.0, title, subtitle, MUTED);
     legend(&mut doc, &methods, 80.0);
 
     let ratio_scale = log_range(rows);
