@@ -11,6 +11,7 @@
 //! - [`serve`]: the live server (TCP, Unix socket, UDP; sources and subscribers).
 //! - [`simulate`]: the bench-scenario simulator (seeded stream of obs, rate, truth).
 //! - [`report`]: replay outputs for people and tools (SVG report, CCSDS AEM).
+//! - [`svg_doc`]: a small SVG document builder shared by the study chart and the report.
 
 pub mod core_thread;
 pub mod estimator;
@@ -22,6 +23,7 @@ pub mod settings;
 pub mod simulate;
 pub mod solve;
 pub mod study;
+pub mod svg_doc;
 pub mod verdict;
 
 pub use estimator::{

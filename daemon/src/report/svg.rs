@@ -24,6 +24,7 @@ use wahbad_protocol::{Alert, Solution, SolutionStatus};
 
 use super::decimate::{min_max, runs, Cell, Columns};
 use super::spans::{alert_spans, has_outliers, sensor_names, worse, AlertSpan};
+use crate::svg_doc::{decade_label, nice_step, step_decimals, Attr, Doc, Frame, Px, Scale};
 
 const WIDTH: f64 = 960.0;
 const LEFT: f64 = 150.0;
@@ -78,27 +79,22 @@ pub fn render(
 
     let layout = Layout::new(sensors.len().max(1), alert_rows.len().max(1));
     let plot = Plot { cols };
-    let mut svg = String::new();
-    let _ = writeln!(
-        svg,
-        r#"<?xml version="1.0" encoding="UTF-8"?>
-<svg xmlns="http://www.w3.org/2000/svg" width="{WIDTH}" height="{h}" viewBox="0 0 {WIDTH} {h}" font-family="Helvetica, Arial, sans-serif" fill="{INK}" data-epochs="{n}">
-<rect width="100%" height="100%" fill="{PAPER}"/>
-<text x="24" y="34" font-size="20" font-weight="bold">{title}</text>
-<text x="24" y="56" font-size="13" fill="{MUTED}">{subtitle}</text>"#,
-        h = layout.height,
-        n = solutions.len(),
-        title = escape(title),
-        subtitle = escape(&subtitle(
-            solutions,
-            alerts,
-            &spans,
-            t0,
-            t1,
-            error_rad.is_some()
-        )),
+    let n_epochs = solutions.len();
+    let mut doc = Doc::new(
+        WIDTH,
+        layout.height,
+        INK,
+        PAPER,
+        &[("data-epochs", &n_epochs)],
     );
-    status_legend(&mut svg, layout.legend_y);
+    doc.heading(
+        24.0,
+        34.0,
+        title,
+        &subtitle(solutions, alerts, &spans, t0, t1, error_rad.is_some()),
+        MUTED,
+    );
+    status_legend(&mut doc, layout.legend_y);
 
     let error_arcsec: Option<Vec<f64>> = error_rad.map(|errors| {
         (0..solutions.len())
@@ -106,17 +102,17 @@ pub fn render(
             .collect()
     });
     error_panel(
-        &mut svg,
+        &mut doc,
         &plot,
         &layout,
         solutions,
         &times,
         error_arcsec.as_deref(),
     );
-    fraction_panel(&mut svg, &plot, &layout, solutions, &times, inlier_level);
+    fraction_panel(&mut doc, &plot, &layout, solutions, &times, inlier_level);
     for y0 in [layout.error_y, layout.fraction_y] {
         alert_shades(
-            &mut svg,
+            &mut doc,
             &plot,
             &spans,
             y0,
@@ -128,13 +124,12 @@ pub fn render(
         );
     }
     let covers = epoch_covers(&plot.cols, &times);
-    outlier_panel(&mut svg, &plot, &layout, solutions, &covers, &sensors);
-    alert_panel(&mut svg, &plot, &layout, &spans, &alert_rows);
-    status_strip(&mut svg, &plot, &layout, solutions, &covers);
-    time_axis(&mut svg, &plot, &layout);
-    caption(&mut svg, &layout, error_rad.is_some());
-    svg.push_str("</svg>\n");
-    svg
+    outlier_panel(&mut doc, &plot, &layout, solutions, &covers, &sensors);
+    alert_panel(&mut doc, &plot, &layout, &spans, &alert_rows);
+    status_strip(&mut doc, &plot, &layout, solutions, &covers);
+    time_axis(&mut doc, &plot, &layout);
+    caption(&mut doc, &layout, error_rad.is_some());
+    doc.finish()
 }
 
 /// Vertical positions of the panels.
@@ -199,35 +194,6 @@ impl Plot {
     }
 }
 
-/// A value axis of a panel.
-#[derive(Clone, Copy)]
-enum Scale {
-    /// log10 decades `lo..=hi`.
-    Log { lo: i32, hi: i32 },
-    /// 0 to 1.
-    Unit,
-}
-
-impl Scale {
-    fn y(self, y0: f64, h: f64, value: f64) -> f64 {
-        let u = match self {
-            Scale::Log { lo, hi } => {
-                let floor = 10f64.powi(lo);
-                let v = if value > floor {
-                    value.log10()
-                } else {
-                    lo as f64
-                };
-                (v - lo as f64) / (hi - lo) as f64
-            }
-            Scale::Unit => value,
-        };
-        // A NaN (e.g. an unset level) sits on the axis rather than in the file.
-        let u = if u.is_nan() { 0.0 } else { u.clamp(0.0, 1.0) };
-        y0 + h * (1.0 - u)
-    }
-}
-
 fn subtitle(
     solutions: &[Solution],
     alerts: &[Alert],
@@ -251,26 +217,23 @@ fn subtitle(
     )
 }
 
-fn panel_frame(svg: &mut String, y0: f64, h: f64, title: &str) {
-    let _ = writeln!(
-        svg,
-        r#"<rect x="{LEFT}" y="{y0}" width="{PLOT_W}" height="{h}" fill="{PANEL}" rx="3"/>
-<text x="{LEFT}" y="{:.1}" font-size="13" font-weight="bold">{}</text>"#,
-        y0 - 8.0,
-        escape(title)
-    );
+/// The plot-wide panel from `y0` down `h` px.
+fn frame(y0: f64, h: f64) -> Frame {
+    Frame {
+        x: LEFT,
+        y: y0,
+        w: PLOT_W,
+        h,
+    }
 }
 
-fn y_tick(svg: &mut String, y: f64, label: &str) {
-    let _ = writeln!(
-        svg,
-        r#"<line x1="{LEFT}" y1="{y:.1}" x2="{:.1}" y2="{y:.1}" stroke="{GRID}" stroke-width="1"/>
-<text x="{:.1}" y="{:.1}" font-size="11" text-anchor="end">{}</text>"#,
-        LEFT + PLOT_W,
-        LEFT - 6.0,
-        y + 4.0,
-        escape(label)
-    );
+fn panel_frame(doc: &mut Doc, y0: f64, h: f64, title: &str) {
+    frame(y0, h).draw(doc, PANEL, 3.0, title, &Px(y0 - 8.0), 13.0);
+}
+
+fn y_tick(doc: &mut Doc, y: f64, label: &str) {
+    // Any height: a tick only needs the panel's left edge and width.
+    frame(y, 0.0).y_tick(doc, y, label, GRID, &Px(LEFT + PLOT_W), &Px(LEFT - 6.0));
 }
 
 /// Status of an epoch whose estimate is meaningful (and whose cov is finite).
@@ -279,7 +242,7 @@ fn is_estimate(status: SolutionStatus) -> bool {
 }
 
 fn error_panel(
-    svg: &mut String,
+    doc: &mut Doc,
     plot: &Plot,
     layout: &Layout,
     solutions: &[Solution],
@@ -330,76 +293,91 @@ fn error_panel(
     } else {
         "1σ per body axis from the covariance (arcsec, log) · no truth in this log"
     };
-    panel_frame(svg, y0, ERROR_H, title);
+    panel_frame(doc, y0, ERROR_H, title);
     if let Scale::Log { lo, hi } = scale {
         for decade in lo..=hi {
             y_tick(
-                svg,
+                doc,
                 scale.y(y0, ERROR_H, 10f64.powi(decade)),
-                &decade_label(decade),
+                &decade_label(decade, -2..=3),
             );
         }
     }
-    let _ = writeln!(
-        svg,
-        r#"<text x="{x}" y="{y}" font-size="12" text-anchor="middle" transform="rotate(-90 {x} {y})">arcsec</text>"#,
-        x = LEFT - 52.0,
-        y = y0 + ERROR_H / 2.0
-    );
+    doc.y_label(LEFT - 52.0, y0 + ERROR_H / 2.0, 12.0, "arcsec");
     for (id, colour, values, is_band) in &series {
         let cells = min_max(&plot.cols, times, values);
         if *is_band {
             let d = band_path(plot, &cells, |v| scale.y(y0, ERROR_H, v), y0 + ERROR_H);
-            let _ = writeln!(
-                svg,
-                r#"<path id="{id}" class="series" d="{d}" fill="{colour}" fill-opacity="0.55" stroke="none"/>"#
+            series_path(
+                doc,
+                id,
+                &d,
+                &[
+                    ("fill", colour),
+                    ("fill-opacity", &0.55),
+                    ("stroke", &"none"),
+                ],
             );
         } else {
             let d = line_path(plot, &cells, |v| scale.y(y0, ERROR_H, v));
-            let _ = writeln!(
-                svg,
-                r#"<path id="{id}" class="series" d="{d}" fill="none" stroke="{colour}" stroke-width="1.3" stroke-linejoin="round"/>"#
-            );
+            series_line(doc, id, &d, colour);
         }
     }
     if error_arcsec.is_none() {
         let mut x = LEFT + PLOT_W - 150.0;
         for (axis_idx, name) in ["x", "y", "z"].iter().enumerate() {
-            let _ = writeln!(
-                svg,
-                r#"<line x1="{x}" y1="{y:.1}" x2="{:.1}" y2="{y:.1}" stroke="{}" stroke-width="2"/>
-<text x="{:.1}" y="{:.1}" font-size="11">σ{name}</text>"#,
-                x + 16.0,
-                AXIS_INK[axis_idx],
-                x + 20.0,
-                y0 + 18.0,
-                y = y0 + 14.0
+            let y = Px(y0 + 14.0);
+            doc.empty(
+                "line",
+                &[
+                    ("x1", &x),
+                    ("y1", &y),
+                    ("x2", &Px(x + 16.0)),
+                    ("y2", &y),
+                    ("stroke", &AXIS_INK[axis_idx]),
+                    ("stroke-width", &2),
+                ],
+            );
+            doc.text(
+                "text",
+                &[
+                    ("x", &Px(x + 20.0)),
+                    ("y", &Px(y0 + 18.0)),
+                    ("font-size", &11),
+                ],
+                &format!("σ{name}"),
             );
             x += 48.0;
         }
     }
 }
 
-/// Decades spanning the finite positive values, within the axis limits.
-fn log_scale(values: impl Iterator<Item = f64>) -> Scale {
-    let (min, max) = values
-        .filter(|v| v.is_finite() && *v > 0.0)
-        .fold((f64::INFINITY, 0.0f64), |(lo, hi), v| {
-            (lo.min(v), hi.max(v))
-        });
-    if !min.is_finite() {
-        return Scale::Log { lo: 0, hi: 2 };
-    }
-    let lo = (min.log10().floor() as i32).clamp(LOG_FLOOR, LOG_CEIL - 1);
-    let hi = (max.log10().ceil() as i32).clamp(lo + 1, LOG_CEIL);
-    Scale::Log { lo, hi }
+/// `<path id=… class="series" d=…>` with `style` after the path data.
+fn series_path(doc: &mut Doc, id: &str, d: &str, style: &[Attr]) {
+    let mut attrs: Vec<Attr> = vec![("id", &id), ("class", &"series"), ("d", &d)];
+    attrs.extend_from_slice(style);
+    doc.empty("path", &attrs);
 }
 
-fn decade_label(decade: i32) -> String {
-    match decade {
-        -2..=3 => format!("{}", 10f64.powi(decade)),
-        _ => format!("1e{decade}"),
-    }
+/// A series drawn as a line of `colour`.
+fn series_line(doc: &mut Doc, id: &str, d: &str, colour: &str) {
+    series_path(
+        doc,
+        id,
+        d,
+        &[
+            ("fill", &"none"),
+            ("stroke", &colour),
+            ("stroke-width", &1.3),
+            ("stroke-linejoin", &"round"),
+        ],
+    );
+}
+
+/// Decades spanning the finite positive values, within the axis limits
+/// (1 to 100″ when there is none).
+fn log_scale(values: impl Iterator<Item = f64>) -> Scale {
+    Scale::log_covering(values, (LOG_FLOOR, LOG_CEIL)).unwrap_or(Scale::Log { lo: 0, hi: 2 })
 }
 
 /// A polyline through each column's min and max, broken at gaps.
@@ -460,7 +438,7 @@ fn band_path(plot: &Plot, cells: &[Cell], y_of: impl Fn(f64) -> f64, base_y: f64
 }
 
 fn fraction_panel(
-    svg: &mut String,
+    doc: &mut Doc,
     plot: &Plot,
     layout: &Layout,
     solutions: &[Solution],
@@ -468,34 +446,50 @@ fn fraction_panel(
     inlier_level: f64,
 ) {
     let y0 = layout.fraction_y;
-    let scale = Scale::Unit;
+    let scale = Scale::UNIT;
     panel_frame(
-        svg,
+        doc,
         y0,
         FRACTION_H,
         "inlier fraction of the window · dashed: alert level",
     );
     for tick in [0.0, 0.25, 0.5, 0.75, 1.0] {
-        y_tick(svg, scale.y(y0, FRACTION_H, tick), &format!("{tick}"));
+        y_tick(doc, scale.y(y0, FRACTION_H, tick), &format!("{tick}"));
     }
     let values: Vec<f64> = solutions.iter().map(|s| s.inlier_fraction).collect();
     let cells = min_max(&plot.cols, times, &values);
     let d = line_path(plot, &cells, |v| scale.y(y0, FRACTION_H, v));
-    let level_y = scale.y(y0, FRACTION_H, inlier_level);
-    let _ = writeln!(
-        svg,
-        r#"<path id="series-inlier-fraction" class="series" d="{d}" fill="none" stroke="{FRACTION_INK}" stroke-width="1.3" stroke-linejoin="round"/>
-<line id="line-inlier-level" data-level="{inlier_level}" x1="{LEFT}" y1="{level_y:.1}" x2="{:.1}" y2="{level_y:.1}" stroke="{LEVEL_INK}" stroke-width="1.2" stroke-dasharray="5 4"/>
-<text x="{:.1}" y="{:.1}" font-size="10" text-anchor="end" fill="{LEVEL_INK}">alert level {}</text>"#,
-        LEFT + PLOT_W,
-        LEFT + PLOT_W - 4.0,
-        level_y - 4.0,
-        escape(&format!("{inlier_level:.2}"))
+    series_line(doc, "series-inlier-fraction", &d, FRACTION_INK);
+    let level_y = Px(scale.y(y0, FRACTION_H, inlier_level));
+    doc.empty(
+        "line",
+        &[
+            ("id", &"line-inlier-level"),
+            ("data-level", &inlier_level),
+            ("x1", &LEFT),
+            ("y1", &level_y),
+            ("x2", &Px(LEFT + PLOT_W)),
+            ("y2", &level_y),
+            ("stroke", &LEVEL_INK),
+            ("stroke-width", &1.2),
+            ("stroke-dasharray", &"5 4"),
+        ],
+    );
+    doc.text(
+        "text",
+        &[
+            ("x", &Px(LEFT + PLOT_W - 4.0)),
+            ("y", &Px(level_y.0 - 4.0)),
+            ("font-size", &10),
+            ("text-anchor", &"end"),
+            ("fill", &LEVEL_INK),
+        ],
+        &format!("alert level {inlier_level:.2}"),
     );
 }
 
 fn outlier_panel(
-    svg: &mut String,
+    doc: &mut Doc,
     plot: &Plot,
     layout: &Layout,
     solutions: &[Solution],
@@ -504,13 +498,13 @@ fn outlier_panel(
 ) {
     let y0 = layout.outlier_y;
     panel_frame(
-        svg,
+        doc,
         y0,
         layout.outlier_h,
         "epochs with outliers, per sensor",
     );
     if sensors.is_empty() {
-        row_label(svg, y0, "no sensors");
+        row_label(doc, y0, "no sensors");
         return;
     }
     for (row_idx, sensor) in sensors.iter().enumerate() {
@@ -523,28 +517,39 @@ fn outlier_panel(
                 n_epochs += 1;
             }
         }
-        row_label(svg, row_y, &format!("{sensor} ({n_epochs})"));
-        let sensor_attr = escape(sensor);
+        row_label(doc, row_y, &format!("{sensor} ({n_epochs})"));
         for (first, count) in runs(&flags) {
-            let x = LEFT + first as f64 * plot.col_width();
-            let _ = writeln!(
-                svg,
-                r#"<rect class="outlier-mark" data-sensor="{sensor_attr}" x="{x:.1}" y="{:.1}" width="{:.1}" height="{:.1}" fill="{OUTLIER_INK}"/>"#,
-                row_y + 3.0,
-                (count as f64 * plot.col_width()).max(1.0),
-                ROW_H - 6.0
+            doc.empty(
+                "rect",
+                &[
+                    ("class", &"outlier-mark"),
+                    ("data-sensor", sensor),
+                    ("x", &Px(LEFT + first as f64 * plot.col_width())),
+                    ("y", &Px(row_y + 3.0)),
+                    ("width", &Px((count as f64 * plot.col_width()).max(1.0))),
+                    ("height", &Px(ROW_H - 6.0)),
+                    ("fill", &OUTLIER_INK),
+                ],
             );
         }
     }
 }
 
-fn row_label(svg: &mut String, row_y: f64, label: &str) {
-    let _ = writeln!(
-        svg,
-        r#"<text x="{:.1}" y="{:.1}" font-size="11" text-anchor="end">{}</text>"#,
-        LEFT - 6.0,
-        row_y + ROW_H - 4.0,
-        escape(label)
+fn row_label(doc: &mut Doc, row_y: f64, label: &str) {
+    end_label(doc, row_y + ROW_H - 4.0, label);
+}
+
+/// A label right-aligned just left of the plot, its baseline at `y`.
+fn end_label(doc: &mut Doc, y: f64, label: &str) {
+    doc.text(
+        "text",
+        &[
+            ("x", &Px(LEFT - 6.0)),
+            ("y", &Px(y)),
+            ("font-size", &11),
+            ("text-anchor", &"end"),
+        ],
+        label,
     );
 }
 
@@ -583,16 +588,16 @@ fn alert_rows(spans: &[AlertSpan]) -> Vec<(String, Option<String>)> {
 }
 
 fn alert_panel(
-    svg: &mut String,
+    doc: &mut Doc,
     plot: &Plot,
     layout: &Layout,
     spans: &[AlertSpan],
     rows: &[(String, Option<String>)],
 ) {
     let y0 = layout.alert_y;
-    panel_frame(svg, y0, layout.alert_h, "alerts, raised → cleared");
+    panel_frame(doc, y0, layout.alert_h, "alerts, raised → cleared");
     if rows.is_empty() {
-        row_label(svg, y0, "none raised");
+        row_label(doc, y0, "none raised");
         return;
     }
     for (row_idx, (kind, sensor)) in rows.iter().enumerate() {
@@ -601,17 +606,13 @@ fn alert_panel(
             Some(sensor) => format!("{kind} · {sensor}"),
             None => kind.clone(),
         };
-        row_label(svg, row_y, &label);
+        row_label(doc, row_y, &label);
         for span in spans
             .iter()
             .filter(|s| &s.kind == kind && &s.sensor == sensor)
         {
             let x = plot.x_of_time(span.start_s);
             let w = (plot.x_of_time(span.end_s) - x).max(1.5);
-            let sensor_attr = match &span.sensor {
-                Some(sensor) => format!(r#" data-sensor="{}""#, escape(sensor)),
-                None => String::new(),
-            };
             let until = if span.open {
                 "end of data (still raised)".to_string()
             } else {
@@ -622,29 +623,41 @@ fn alert_panel(
             } else {
                 format!("{:.3} s", span.start_s)
             };
-            let _ = writeln!(
-                svg,
-                r#"<rect class="alert-span" data-kind="{}"{sensor_attr} data-open="{}" x="{x:.1}" y="{:.1}" width="{w:.1}" height="{:.1}" fill="{ALERT_FILL}" rx="2"><title>{} from {} to {}</title></rect>"#,
-                escape(kind),
-                span.open,
-                row_y + 2.0,
-                ROW_H - 4.0,
-                escape(&label),
-                escape(&from),
-                escape(&until)
-            );
+            let mut attrs: Vec<Attr> = vec![("class", &"alert-span"), ("data-kind", kind)];
+            if let Some(sensor) = &span.sensor {
+                attrs.push(("data-sensor", sensor));
+            }
+            let (x, y, w, h) = (Px(x), Px(row_y + 2.0), Px(w), Px(ROW_H - 4.0));
+            attrs.extend_from_slice(&[
+                ("data-open", &span.open),
+                ("x", &x),
+                ("y", &y),
+                ("width", &w),
+                ("height", &h),
+                ("fill", &ALERT_FILL),
+                ("rx", &2),
+            ]);
+            doc.titled("rect", &attrs, &format!("{label} from {from} to {until}"));
         }
     }
 }
 
 /// Faint bands over a panel where any alert is raised.
-fn alert_shades(svg: &mut String, plot: &Plot, spans: &[AlertSpan], y0: f64, h: f64) {
+fn alert_shades(doc: &mut Doc, plot: &Plot, spans: &[AlertSpan], y0: f64, h: f64) {
     for span in spans {
         let x = plot.x_of_time(span.start_s);
         let w = (plot.x_of_time(span.end_s) - x).max(1.0);
-        let _ = writeln!(
-            svg,
-            r#"<rect class="alert-shade" x="{x:.1}" y="{y0:.1}" width="{w:.1}" height="{h:.1}" fill="{ALERT_FILL}" fill-opacity="0.12"/>"#
+        doc.empty(
+            "rect",
+            &[
+                ("class", &"alert-shade"),
+                ("x", &Px(x)),
+                ("y", &Px(y0)),
+                ("width", &Px(w)),
+                ("height", &Px(h)),
+                ("fill", &ALERT_FILL),
+                ("fill-opacity", &0.12),
+            ],
         );
     }
 }
@@ -666,7 +679,7 @@ const STATUSES: [SolutionStatus; 4] = [
 ];
 
 fn status_strip(
-    svg: &mut String,
+    doc: &mut Doc,
     plot: &Plot,
     layout: &Layout,
     solutions: &[Solution],
@@ -679,97 +692,113 @@ fn status_strip(
             *cell = Some(cell.map_or(solution.status, |s| worse(s, solution.status)));
         }
     }
-    let _ = writeln!(
-        svg,
-        r#"<text x="{:.1}" y="{:.1}" font-size="11" text-anchor="end">status</text>"#,
-        LEFT - 6.0,
-        y0 + STRIP_H - 3.0
-    );
+    end_label(doc, y0 + STRIP_H - 3.0, "status");
     for status in STATUSES {
         let flags: Vec<bool> = cells.iter().map(|c| *c == Some(status)).collect();
         for (first, count) in runs(&flags) {
-            let _ = writeln!(
-                svg,
-                r#"<rect class="status-run" data-status="{}" x="{:.1}" y="{y0:.1}" width="{:.1}" height="{STRIP_H}" fill="{}"/>"#,
-                status.as_str(),
-                LEFT + first as f64 * plot.col_width(),
-                count as f64 * plot.col_width(),
-                status_colour(status)
+            doc.empty(
+                "rect",
+                &[
+                    ("class", &"status-run"),
+                    ("data-status", &status.as_str()),
+                    ("x", &Px(LEFT + first as f64 * plot.col_width())),
+                    ("y", &Px(y0)),
+                    ("width", &Px(count as f64 * plot.col_width())),
+                    ("height", &STRIP_H),
+                    ("fill", &status_colour(status)),
+                ],
             );
         }
     }
 }
 
-fn status_legend(svg: &mut String, y: f64) {
+fn status_legend(doc: &mut Doc, y: f64) {
     let mut x = 24.0;
     for status in STATUSES {
-        let _ = writeln!(
-            svg,
-            r#"<rect class="legend-status" x="{x}" y="{:.1}" width="12" height="10" fill="{}"/>
-<text x="{}" y="{y}" font-size="11">{}</text>"#,
-            y - 9.0,
-            status_colour(status),
-            x + 16.0,
-            status.as_str()
+        legend_swatch(doc, x, y, Some("legend-status"), status_colour(status));
+        doc.text(
+            "text",
+            &[("x", &(x + 16.0)), ("y", &y), ("font-size", &11)],
+            status.as_str(),
         );
         x += 24.0 + 7.0 * status.as_str().len() as f64;
     }
-    let _ = writeln!(
-        svg,
-        r#"<rect x="{x}" y="{:.1}" width="12" height="10" fill="{ALERT_FILL}"/>
-<text x="{}" y="{y}" font-size="11">alert raised</text>
-<rect x="{}" y="{:.1}" width="12" height="10" fill="{OUTLIER_INK}"/>
-<text x="{}" y="{y}" font-size="11">outliers in window</text>"#,
-        y - 9.0,
-        x + 16.0,
-        x + 110.0,
-        y - 9.0,
-        x + 126.0
+    legend_swatch(doc, x, y, None, ALERT_FILL);
+    doc.text(
+        "text",
+        &[("x", &(x + 16.0)), ("y", &y), ("font-size", &11)],
+        "alert raised",
+    );
+    legend_swatch(doc, x + 110.0, y, None, OUTLIER_INK);
+    doc.text(
+        "text",
+        &[("x", &(x + 126.0)), ("y", &y), ("font-size", &11)],
+        "outliers in window",
     );
 }
 
-/// Tick spacing of 1, 2 or 5 × 10ᵏ seconds giving about eight ticks.
-fn time_step(span: f64) -> f64 {
-    let raw = span / 8.0;
-    let magnitude = 10f64.powf(raw.log10().floor());
-    [1.0, 2.0, 5.0, 10.0]
-        .into_iter()
-        .map(|m| m * magnitude)
-        .find(|step| *step >= raw)
-        .unwrap_or(10.0 * magnitude)
+/// A 12 × 10 px colour swatch at `x` sitting on baseline `y`.
+fn legend_swatch(doc: &mut Doc, x: f64, y: f64, class: Option<&str>, fill: &str) {
+    let mut attrs: Vec<Attr> = Vec::new();
+    if let Some(class) = &class {
+        attrs.push(("class", class));
+    }
+    let top = Px(y - 9.0);
+    attrs.extend_from_slice(&[
+        ("x", &x),
+        ("y", &top),
+        ("width", &12),
+        ("height", &10),
+        ("fill", &fill),
+    ]);
+    doc.empty("rect", &attrs);
 }
 
-fn time_axis(svg: &mut String, plot: &Plot, layout: &Layout) {
+fn time_axis(doc: &mut Doc, plot: &Plot, layout: &Layout) {
     let (t0, span) = (plot.cols.t0(), plot.cols.span());
-    let step = time_step(span);
+    let step = nice_step(span, 8);
     let first = (t0 / step).ceil() as i64;
     let last = ((t0 + span) / step).floor() as i64;
-    let decimals = if step >= 1.0 {
-        0
-    } else {
-        (-step.log10().floor()) as usize
-    };
+    let decimals = step_decimals(step);
     for k in first..=last {
         let t = k as f64 * step;
-        let x = plot.x_of_time(t);
-        let _ = writeln!(
-            svg,
-            r#"<line x1="{x:.1}" y1="{:.1}" x2="{x:.1}" y2="{:.1}" stroke="{GRID}" stroke-width="0.8" stroke-dasharray="1 3"/>
-<text x="{x:.1}" y="{:.1}" font-size="11" text-anchor="middle">{t:.decimals$}</text>"#,
-            layout.error_y,
-            layout.axis_y,
-            layout.axis_y + 14.0
+        let x = Px(plot.x_of_time(t));
+        doc.empty(
+            "line",
+            &[
+                ("x1", &x),
+                ("y1", &Px(layout.error_y)),
+                ("x2", &x),
+                ("y2", &Px(layout.axis_y)),
+                ("stroke", &GRID),
+                ("stroke-width", &0.8),
+                ("stroke-dasharray", &"1 3"),
+            ],
+        );
+        doc.text(
+            "text",
+            &[
+                ("x", &x),
+                ("y", &Px(layout.axis_y + 14.0)),
+                ("font-size", &11),
+                ("text-anchor", &"middle"),
+            ],
+            &format!("{t:.decimals$}"),
         );
     }
-    let _ = writeln!(
-        svg,
-        r#"<text x="{:.1}" y="{:.1}" font-size="12" text-anchor="middle">data time (s, bench clock)</text>"#,
-        LEFT + PLOT_W / 2.0,
-        layout.axis_y + 32.0
+    doc.text(
+        "text",
+        &[
+            ("x", &Px(LEFT + PLOT_W / 2.0)),
+            ("y", &Px(layout.axis_y + 32.0)),
+            ("font-size", &12),
+            ("text-anchor", &"middle"),
+        ],
+        "data time (s, bench clock)",
     );
 }
 
-fn caption(svg: &mut String, layout: &Layout, has_truth: bool) {
+fn caption(doc: &mut Doc, layout: &Layout, has_truth: bool) {
     let lines: &[&str] = if has_truth {
         &[
             "Error: rotation angle between the estimate and truth. Envelope: 3σ with σ = √trace(cov),",
@@ -781,44 +810,23 @@ fn caption(svg: &mut String, layout: &Layout, has_truth: bool) {
     let last = "Each pixel column shows the min and max of the epochs it covers; \
                 unobservable and insufficient epochs carry no σ.";
     for (idx, line) in lines.iter().chain([&last]).enumerate() {
-        let _ = writeln!(
-            svg,
-            r#"<text class="caption" x="24" y="{:.1}" font-size="11" fill="{MUTED}">{}</text>"#,
-            layout.caption_y + idx as f64 * 15.0,
-            escape(line)
+        doc.text(
+            "text",
+            &[
+                ("class", &"caption"),
+                ("x", &24),
+                ("y", &Px(layout.caption_y + idx as f64 * 15.0)),
+                ("font-size", &11),
+                ("fill", &MUTED),
+            ],
+            line,
         );
     }
-}
-
-/// Escapes text for XML character data and attribute values.
-fn escape(text: &str) -> String {
-    let mut out = String::with_capacity(text.len());
-    for c in text.chars() {
-        match c {
-            '&' => out.push_str("&amp;"),
-            '<' => out.push_str("&lt;"),
-            '>' => out.push_str("&gt;"),
-            '"' => out.push_str("&quot;"),
-            '\'' => out.push_str("&apos;"),
-            // Characters XML 1.0 cannot carry at all.
-            c if (c as u32) < 0x20 && !matches!(c, '\t' | '\n' | '\r') => out.push('\u{fffd}'),
-            _ => out.push(c),
-        }
-    }
-    out
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn escapes_markup_and_control_characters() {
-        assert_eq!(
-            escape("a<b & \"c\">'d'\u{1}"),
-            "a&lt;b &amp; &quot;c&quot;&gt;&apos;d&apos;\u{fffd}"
-        );
-    }
 
     #[test]
     fn log_scale_covers_values_within_limits() {
@@ -839,22 +847,5 @@ mod tests {
             log_scale([100.0].into_iter()),
             Scale::Log { lo: 2, hi: 3 }
         ));
-    }
-
-    #[test]
-    fn coordinates_are_always_numbers() {
-        assert_eq!(Scale::Unit.y(10.0, 100.0, f64::NAN), 110.0);
-        assert_eq!(Scale::Unit.y(10.0, 100.0, 2.0), 10.0);
-        let log = Scale::Log { lo: 0, hi: 2 };
-        assert_eq!(log.y(0.0, 100.0, -5.0), 100.0);
-        assert_eq!(log.y(0.0, 100.0, f64::INFINITY), 0.0);
-        assert_eq!(log.y(0.0, 100.0, 10.0), 50.0);
-    }
-
-    #[test]
-    fn time_steps_are_round() {
-        assert_eq!(time_step(60.0), 10.0);
-        assert_eq!(time_step(1.0), 0.2);
-        assert_eq!(time_step(3600.0), 500.0);
     }
 }

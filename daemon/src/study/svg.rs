@@ -2,9 +2,8 @@
 //! rate and a panel of median error over CRB (log scale), both against the
 //! outlier share, one line per method.
 
-use std::fmt::Write as _;
-
 use super::{Row, SUCCESS_CRB_MULTIPLE};
+use crate::svg_doc::{decade_label, Attr, Doc, Frame, Px, Scale};
 
 /// Panel size and margins, px.
 const PANEL_W: f64 = 400.0;
@@ -27,6 +26,8 @@ const PAPER: &str = "#fbfaf7";
 const PANEL: &str = "#f1eee6";
 const GRID: &str = "#d9d4c7";
 const MUTED: &str = "#5c5f73";
+/// Log-axis limits of error / CRB, decades.
+const LOG_LIMITS: (i32, i32) = (-6, 12);
 
 /// Renders `rows` with `title` above; `subtitle` (e.g. the settings) below it.
 pub fn render(rows: &[Row], title: &str, subtitle: &str) -> String {
@@ -38,38 +39,21 @@ pub fn render(rows: &[Row], title: &str, subtitle: &str) -> String {
         + (sizes.len().saturating_sub(1)) as f64 * GAP_Y
         + BOTTOM;
 
-    let mut svg = String::new();
-    let _ = writeln!(
-        svg,
-        r#"<?xml version="1.0" encoding="UTF-8"?>
-<svg xmlns="http://www.w3.org/2000/svg" width="{width}" height="{height}" viewBox="0 0 {width} {height}" font-family="Helvetica, Arial, sans-serif" fill="{INK}">
-<rect width="100%" height="100%" fill="{PAPER}"/>
-<text x="{LEFT}" y="32" font-size="20" font-weight="bold">{}</text>
-<text x="{LEFT}" y="54" font-size="13" fill="{MUTED}">{}</text>"#,
-        escape(title),
-        escape(subtitle)
-    );
-    legend(&mut svg, &methods, 80.0);
+    let mut doc = Doc::new(width, height, INK, PAPER, &[]);
+    doc.heading(LEFT, 32.0, title, subtitle, MUTED);
+    legend(&mut doc, &methods, 80.0);
 
-    let ratio_range = log_range(rows);
+    let ratio_scale = log_range(rows);
     for (size_idx, &n) in sizes.iter().enumerate() {
         let y0 = TOP + size_idx as f64 * (PANEL_H + GAP_Y);
         let of_size: Vec<&Row> = rows.iter().filter(|r| r.n == n).collect();
-        let success = Panel {
-            x0: LEFT,
-            y0,
-            y_axis: Axis::Success,
-        };
-        let ratio = Panel {
-            x0: LEFT + PANEL_W + GAP_X,
-            y0,
-            y_axis: Axis::LogRatio(ratio_range),
-        };
+        let success = Panel::new(LEFT, y0, Scale::UNIT);
+        let ratio = Panel::new(LEFT + PANEL_W + GAP_X, y0, ratio_scale);
         success.frame(
-            &mut svg,
+            &mut doc,
             &format!("N = {n} · success rate (error < {SUCCESS_CRB_MULTIPLE} CRB)"),
         );
-        ratio.frame(&mut svg, &format!("N = {n} · median error / CRB"));
+        ratio.frame(&mut doc, &format!("N = {n} · median error / CRB"));
         for (method_idx, method) in methods.iter().enumerate() {
             let mut points: Vec<&Row> = of_size
                 .iter()
@@ -78,26 +62,18 @@ pub fn render(rows: &[Row], title: &str, subtitle: &str) -> String {
                 .collect();
             points.sort_by(|a, b| a.outlier_share.total_cmp(&b.outlier_share));
             let style = style_of(method, method_idx);
-            success.series(&mut svg, &points, |r| r.success_rate, &style);
-            ratio.series(&mut svg, &points, |r| r.median_error_over_crb, &style);
+            success.series(&mut doc, &points, |r| r.success_rate, &style);
+            ratio.series(&mut doc, &points, |r| r.median_error_over_crb, &style);
         }
     }
-    svg.push_str("</svg>\n");
-    svg
+    doc.finish()
 }
 
-#[derive(Clone, Copy)]
-enum Axis {
-    /// 0–100 %.
-    Success,
-    /// log10 range (lo, hi) of error / CRB.
-    LogRatio((f64, f64)),
-}
-
+/// One panel: outlier share across, `scale` up (0–100 % success, or log10
+/// decades of error / CRB).
 struct Panel {
-    x0: f64,
-    y0: f64,
-    y_axis: Axis,
+    frame: Frame,
+    scale: Scale,
 }
 
 struct Style {
@@ -105,162 +81,187 @@ struct Style {
     dashed: bool,
 }
 
+impl Style {
+    fn dash(&self) -> Option<Attr<'static>> {
+        self.dashed.then_some(("stroke-dasharray", &"6 4"))
+    }
+}
+
 impl Panel {
+    fn new(x0: f64, y0: f64, scale: Scale) -> Self {
+        Panel {
+            frame: Frame {
+                x: x0,
+                y: y0,
+                w: PANEL_W,
+                h: PANEL_H,
+            },
+            scale,
+        }
+    }
+
     fn x(&self, share: f64) -> f64 {
-        self.x0 + share.clamp(0.0, 1.0) * PANEL_W
+        Scale::UNIT.x(self.frame.x, PANEL_W, share)
     }
 
     fn y(&self, value: f64) -> f64 {
-        let t = match self.y_axis {
-            Axis::Success => value.clamp(0.0, 1.0),
-            Axis::LogRatio((lo, hi)) => {
-                let v = value.max(10f64.powf(lo)).log10();
-                ((v - lo) / (hi - lo)).clamp(0.0, 1.0)
-            }
-        };
-        self.y0 + PANEL_H * (1.0 - t)
+        self.scale.y(self.frame.y, PANEL_H, value)
     }
 
     /// Background, grid, ticks, axis labels and the panel title.
-    fn frame(&self, svg: &mut String, title: &str) {
-        let (x0, y0) = (self.x0, self.y0);
-        let _ = writeln!(
-            svg,
-            r#"<rect x="{x0}" y="{y0}" width="{PANEL_W}" height="{PANEL_H}" fill="{PANEL}" rx="4"/>
-<text x="{x0}" y="{}" font-size="14" font-weight="bold">{}</text>"#,
-            y0 - 10.0,
-            escape(title)
-        );
+    fn frame(&self, doc: &mut Doc, title: &str) {
+        let (x0, y0) = (self.frame.x, self.frame.y);
+        self.frame.draw(doc, PANEL, 4.0, title, &(y0 - 10.0), 14.0);
         for tick in 0..=10 {
-            let share = tick as f64 / 10.0;
-            let x = self.x(share);
-            let _ = writeln!(
-                svg,
-                r#"<line x1="{x:.1}" y1="{y0}" x2="{x:.1}" y2="{}" stroke="{GRID}" stroke-width="1"/>"#,
-                y0 + PANEL_H
+            let x = Px(self.x(tick as f64 / 10.0));
+            doc.empty(
+                "line",
+                &[
+                    ("x1", &x),
+                    ("y1", &y0),
+                    ("x2", &x),
+                    ("y2", &(y0 + PANEL_H)),
+                    ("stroke", &GRID),
+                    ("stroke-width", &1),
+                ],
             );
             if tick % 2 == 0 {
-                let _ = writeln!(
-                    svg,
-                    r#"<text x="{x:.1}" y="{}" font-size="11" text-anchor="middle">{}%</text>"#,
-                    y0 + PANEL_H + 16.0,
-                    tick * 10
+                doc.text(
+                    "text",
+                    &[
+                        ("x", &x),
+                        ("y", &(y0 + PANEL_H + 16.0)),
+                        ("font-size", &11),
+                        ("text-anchor", &"middle"),
+                    ],
+                    &format!("{}%", tick * 10),
                 );
             }
         }
-        let _ = writeln!(
-            svg,
-            r#"<text x="{}" y="{}" font-size="12" text-anchor="middle">outlier share</text>"#,
-            x0 + PANEL_W / 2.0,
-            y0 + PANEL_H + 34.0
+        doc.text(
+            "text",
+            &[
+                ("x", &(x0 + PANEL_W / 2.0)),
+                ("y", &(y0 + PANEL_H + 34.0)),
+                ("font-size", &12),
+                ("text-anchor", &"middle"),
+            ],
+            "outlier share",
         );
-        match self.y_axis {
-            Axis::Success => {
+        match self.scale {
+            Scale::Linear { .. } => {
                 for pct in [0, 25, 50, 75, 100] {
-                    self.y_tick(svg, pct as f64 / 100.0, &format!("{pct}%"));
+                    self.y_tick(doc, pct as f64 / 100.0, &format!("{pct}%"));
                 }
                 // The 99 % success line the targets are stated against.
-                let y = self.y(0.99);
-                let _ = writeln!(
-                    svg,
-                    r#"<line x1="{x0}" y1="{y:.1}" x2="{}" y2="{y:.1}" stroke="{INK}" stroke-width="0.8" stroke-dasharray="2 3"/>
-<text x="{}" y="{:.1}" font-size="10" text-anchor="end" fill="{MUTED}">99%</text>"#,
-                    x0 + PANEL_W,
-                    x0 + PANEL_W - 4.0,
-                    y + 12.0
-                );
-                self.y_label(svg, "success rate");
+                self.reference_line(doc, self.y(0.99), "99%", 12.0);
+                doc.y_label(x0 - 48.0, y0 + PANEL_H / 2.0, 12.0, "success rate");
             }
-            Axis::LogRatio((lo, hi)) => {
-                for decade in (lo as i32)..=(hi as i32) {
-                    let v = 10f64.powi(decade);
-                    self.y_tick(svg, v, &format_decade(decade));
+            Scale::Log { lo, hi } => {
+                for decade in lo..=hi {
+                    self.y_tick(doc, 10f64.powi(decade), &decade_label(decade, -1..=1));
                 }
                 let y = self.y(SUCCESS_CRB_MULTIPLE);
-                let _ = writeln!(
-                    svg,
-                    r#"<line x1="{x0}" y1="{y:.1}" x2="{}" y2="{y:.1}" stroke="{INK}" stroke-width="0.8" stroke-dasharray="2 3"/>
-<text x="{}" y="{:.1}" font-size="10" text-anchor="end" fill="{MUTED}">success limit</text>"#,
-                    x0 + PANEL_W,
-                    x0 + PANEL_W - 4.0,
-                    y - 4.0
+                self.reference_line(doc, y, "success limit", -4.0);
+                doc.y_label(
+                    x0 - 48.0,
+                    y0 + PANEL_H / 2.0,
+                    12.0,
+                    "median error / CRB (log)",
                 );
-                self.y_label(svg, "median error / CRB (log)");
             }
         }
     }
 
-    fn y_tick(&self, svg: &mut String, value: f64, label: &str) {
-        let y = self.y(value);
-        let _ = writeln!(
-            svg,
-            r#"<line x1="{}" y1="{y:.1}" x2="{}" y2="{y:.1}" stroke="{GRID}" stroke-width="1"/>
-<text x="{}" y="{:.1}" font-size="11" text-anchor="end">{}</text>"#,
-            self.x0,
-            self.x0 + PANEL_W,
-            self.x0 - 6.0,
-            y + 4.0,
-            escape(label)
+    fn y_tick(&self, doc: &mut Doc, value: f64, label: &str) {
+        let x0 = self.frame.x;
+        self.frame.y_tick(
+            doc,
+            self.y(value),
+            label,
+            GRID,
+            &(x0 + PANEL_W),
+            &(x0 - 6.0),
         );
     }
 
-    fn y_label(&self, svg: &mut String, label: &str) {
-        let (x, y) = (self.x0 - 48.0, self.y0 + PANEL_H / 2.0);
-        let _ = writeln!(
-            svg,
-            r#"<text x="{x}" y="{y}" font-size="12" text-anchor="middle" transform="rotate(-90 {x} {y})">{}</text>"#,
-            escape(label)
+    /// A dotted line across the panel at `y`, labelled at its right end
+    /// `label_dy` px below it.
+    fn reference_line(&self, doc: &mut Doc, y: f64, label: &str, label_dy: f64) {
+        let x0 = self.frame.x;
+        doc.empty(
+            "line",
+            &[
+                ("x1", &x0),
+                ("y1", &Px(y)),
+                ("x2", &(x0 + PANEL_W)),
+                ("y2", &Px(y)),
+                ("stroke", &INK),
+                ("stroke-width", &0.8),
+                ("stroke-dasharray", &"2 3"),
+            ],
+        );
+        doc.text(
+            "text",
+            &[
+                ("x", &(x0 + PANEL_W - 4.0)),
+                ("y", &Px(y + label_dy)),
+                ("font-size", &10),
+                ("text-anchor", &"end"),
+                ("fill", &MUTED),
+            ],
+            label,
         );
     }
 
-    fn series(&self, svg: &mut String, rows: &[&Row], value: impl Fn(&Row) -> f64, style: &Style) {
-        if rows.is_empty() {
-            return;
-        }
-        let points: Vec<String> = rows
+    fn series(&self, doc: &mut Doc, rows: &[&Row], value: impl Fn(&Row) -> f64, style: &Style) {
+        let points: Vec<(f64, f64)> = rows
             .iter()
-            .map(|r| format!("{:.1},{:.1}", self.x(r.outlier_share), self.y(value(r))))
+            .map(|r| (self.x(r.outlier_share), self.y(value(r))))
             .collect();
-        let dash = if style.dashed {
-            r#" stroke-dasharray="6 4""#
-        } else {
-            ""
-        };
-        let _ = writeln!(
-            svg,
-            r#"<polyline points="{}" fill="none" stroke="{}" stroke-width="2"{dash} stroke-linejoin="round"/>"#,
-            points.join(" "),
-            style.colour
-        );
-        for p in &points {
-            let (x, y) = p.split_once(',').unwrap_or(("0", "0"));
-            let _ = writeln!(
-                svg,
-                r#"<circle cx="{x}" cy="{y}" r="3" fill="{PAPER}" stroke="{}" stroke-width="1.5"/>"#,
-                style.colour
+        let mut line: Vec<Attr> = vec![
+            ("fill", &"none"),
+            ("stroke", &style.colour),
+            ("stroke-width", &2),
+        ];
+        line.extend(style.dash());
+        line.push(("stroke-linejoin", &"round"));
+        doc.polyline(&points, &line);
+        for (x, y) in points {
+            doc.empty(
+                "circle",
+                &[
+                    ("cx", &Px(x)),
+                    ("cy", &Px(y)),
+                    ("r", &3),
+                    ("fill", &PAPER),
+                    ("stroke", &style.colour),
+                    ("stroke-width", &1.5),
+                ],
             );
         }
     }
 }
 
-fn legend(svg: &mut String, methods: &[String], y: f64) {
+fn legend(doc: &mut Doc, methods: &[String], y: f64) {
     let mut x = LEFT;
     for (idx, method) in methods.iter().enumerate() {
         let style = style_of(method, idx);
-        let dash = if style.dashed {
-            r#" stroke-dasharray="6 4""#
-        } else {
-            ""
-        };
-        let _ = writeln!(
-            svg,
-            r#"<line x1="{x}" y1="{y}" x2="{}" y2="{y}" stroke="{}" stroke-width="2.5"{dash}/>
-<text x="{}" y="{}" font-size="12">{}</text>"#,
-            x + 24.0,
-            style.colour,
-            x + 30.0,
-            y + 4.0,
-            escape(method)
+        let x2 = x + 24.0;
+        let mut line: Vec<Attr> = vec![
+            ("x1", &x),
+            ("y1", &y),
+            ("x2", &x2),
+            ("y2", &y),
+            ("stroke", &style.colour),
+            ("stroke-width", &2.5),
+        ];
+        line.extend(style.dash());
+        doc.empty("line", &line);
+        doc.text(
+            "text",
+            &[("x", &(x + 30.0)), ("y", &(y + 4.0)), ("font-size", &12)],
+            method,
         );
         x += 40.0 + 8.0 * method.chars().count() as f64 + 16.0;
     }
@@ -281,22 +282,10 @@ fn style_of(method: &str, idx: usize) -> Style {
 }
 
 /// Decades spanning the ratios, at least 10⁻¹ to 10¹ so the success limit shows.
-fn log_range(rows: &[Row]) -> (f64, f64) {
-    let finite = rows
-        .iter()
-        .map(|r| r.median_error_over_crb)
-        .filter(|v| v.is_finite() && *v > 0.0);
-    let (min, max) = finite.fold((0.1f64, 10.0f64), |(lo, hi), v| (lo.min(v), hi.max(v)));
-    (min.log10().floor().max(-6.0), max.log10().ceil().min(12.0))
-}
-
-fn format_decade(decade: i32) -> String {
-    match decade {
-        0 => "1".into(),
-        1 => "10".into(),
-        -1 => "0.1".into(),
-        _ => format!("1e{decade}"),
-    }
+fn log_range(rows: &[Row]) -> Scale {
+    let ratios = rows.iter().map(|r| r.median_error_over_crb);
+    Scale::log_covering(ratios.chain([0.1, 10.0]), LOG_LIMITS)
+        .unwrap_or(Scale::Log { lo: -1, hi: 1 })
 }
 
 fn unique_sizes(rows: &[Row]) -> Vec<usize> {
@@ -319,22 +308,6 @@ fn unique_methods(rows: &[Row]) -> Vec<String> {
     methods
 }
 
-/// Escapes text for XML character data and attribute values.
-fn escape(text: &str) -> String {
-    let mut out = String::with_capacity(text.len());
-    for c in text.chars() {
-        match c {
-            '&' => out.push_str("&amp;"),
-            '<' => out.push_str("&lt;"),
-            '>' => out.push_str("&gt;"),
-            '"' => out.push_str("&quot;"),
-            '\'' => out.push_str("&apos;"),
-            _ => out.push(c),
-        }
-    }
-    out
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -351,14 +324,6 @@ mod tests {
             median_error_rad: 1e-4,
             median_time_us: 10.0,
         }
-    }
-
-    #[test]
-    fn escapes_markup() {
-        assert_eq!(
-            escape(r#"a<b & "c">'d'"#),
-            "a&lt;b &amp; &quot;c&quot;&gt;&apos;d&apos;"
-        );
     }
 
     #[test]
@@ -383,7 +348,13 @@ mod tests {
 
     #[test]
     fn log_range_covers_the_success_limit() {
-        assert_eq!(log_range(&[row("ls", 10, 0.0, 1.0)]), (-1.0, 1.0));
-        assert_eq!(log_range(&[row("ls", 10, 0.0, 0.003)]), (-3.0, 1.0));
+        assert_eq!(
+            log_range(&[row("ls", 10, 0.0, 1.0)]),
+            Scale::Log { lo: -1, hi: 1 }
+        );
+        assert_eq!(
+            log_range(&[row("ls", 10, 0.0, 0.003)]),
+            Scale::Log { lo: -3, hi: 1 }
+        );
     }
 }
