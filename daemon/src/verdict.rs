@@ -8,8 +8,13 @@
 //!   error `A_true ≈ (I − [δθ×]) A_est`.
 //! - Observability, by the eigenvalues `λ₁ ≤ λ₂ ≤ λ₃` of `F`: `Unobservable`
 //!   about the eigenvector of `λ₁` when `λ₁ ≤ OBSERVABILITY_RATIO · λ₃`
-//!   (inliers spanning fewer than two independent directions give `λ₁ = 0`);
-//!   that axis then carries [`UNOBSERVABLE_VARIANCE`] in `P`, the other two
+//!   (inliers spanning fewer than two independent directions give `λ₁ = 0`).
+//!   Measurement noise spreads the measured `b_i` of a single reference
+//!   direction into a cone and so hides that zero, so the same test is also
+//!   made on the noise-free geometry `G = Σ_inliers σ_i⁻² (I − r_i r_iᵀ)` of
+//!   the reference directions; when `G` fails it, `P` is taken from
+//!   `A G Aᵀ` and the axis is `A` times `G`'s weak eigenvector. The
+//!   unobservable axis then carries [`UNOBSERVABLE_VARIANCE`] in `P`, the other two
 //!   their `1/λ`. Fewer than two pairs or two inliers: `Insufficient`, with
 //!   `P = UNOBSERVABLE_VARIANCE · I`. Never NaN or infinite.
 //! - A pair with a zero or non-finite vector or a bad σ (refused by the
@@ -88,6 +93,7 @@ pub fn assess_into(v: &mut Verdict, pairs: &[Pair], q: &UnitQuaternion<f64>, gat
     v.residuals.clear();
     v.inliers.clear();
     let mut info = Matrix3::<f64>::zeros();
+    let mut geometry = Matrix3::<f64>::zeros();
     let mut n_inliers = 0;
     for p in pairs {
         let (nb, nr) = (p.b.norm(), p.r.norm());
@@ -103,7 +109,8 @@ pub fn assess_into(v: &mut Verdict, pairs: &[Pair], q: &UnitQuaternion<f64>, gat
             continue;
         }
         let b = p.b / nb;
-        let ar = a * (p.r / nr);
+        let r = p.r / nr;
+        let ar = a * r;
         let theta = b.cross(&ar).norm().atan2(b.dot(&ar));
         let inlier = theta <= gate_k * p.sigma;
         v.residuals.push(theta);
@@ -112,6 +119,7 @@ pub fn assess_into(v: &mut Verdict, pairs: &[Pair], q: &UnitQuaternion<f64>, gat
             n_inliers += 1;
             let w = 1.0 / (p.sigma * p.sigma);
             info += (Matrix3::identity() - b * b.transpose()) * w;
+            geometry += (Matrix3::identity() - r * r.transpose()) * w;
         }
     }
     v.n_inliers = n_inliers;
@@ -120,9 +128,41 @@ pub fn assess_into(v: &mut Verdict, pairs: &[Pair], q: &UnitQuaternion<f64>, gat
     } else {
         n_inliers as f64 / pairs.len() as f64
     };
-    let (covariance, observability) = covariance_of(&info, n_inliers);
+    let (mut covariance, mut observability) = covariance_of(&info, n_inliers);
+    if observability == Observability::Full && !spans_two_directions(&geometry) {
+        (covariance, observability) = covariance_of(&(a * geometry * a.transpose()), n_inliers);
+        if observability == Observability::Full {
+            // Rounding put the rotated geometry just past the ratio; the
+            // reference directions themselves are the judge.
+            observability = Observability::Unobservable {
+                axis: weak_axis(&(a * geometry * a.transpose())),
+            };
+        }
+    }
     v.covariance = covariance;
     v.observability = observability;
+}
+
+/// Whether the weighted reference directions behind `geometry` span two
+/// independent directions, by the eigenvalue ratio of the module doc.
+fn spans_two_directions(geometry: &Matrix3<f64>) -> bool {
+    match symmetric_eigen3(geometry) {
+        Some(eig) => eig.values[0] > OBSERVABILITY_RATIO * eig.values[2],
+        None => false,
+    }
+}
+
+/// The eigenvector of the smallest eigenvalue, sign fixed by its largest component.
+fn weak_axis(info: &Matrix3<f64>) -> Vector3<f64> {
+    let mut axis: Vector3<f64> = match symmetric_eigen3(info) {
+        Some(eig) => eig.vectors.column(0).into_owned(),
+        None => Vector3::z(),
+    };
+    let imax = axis.iamax();
+    if axis[imax] < 0.0 {
+        axis = -axis;
+    }
+    axis
 }
 
 /// `F⁻¹` with the observability test of the module doc.
@@ -201,6 +241,34 @@ mod tests {
             other => panic!("expected unobservable, got {other:?}"),
         }
         assert_eq!(v.covariance[(2, 2)], UNOBSERVABLE_VARIANCE);
+        assert!(v.covariance.iter().all(|x| x.is_finite()));
+    }
+
+    #[test]
+    fn noisy_sightings_of_one_reference_direction_are_unobservable() {
+        // One magnetometer at rest: every pair has the same reference
+        // direction, the measured b scatter by their noise (derived in the
+        // test: a ring of b at 0.5σ about the true direction). The scatter
+        // alone makes F full rank; the reference geometry has rank two.
+        let sigma: f64 = 0.012;
+        let (s, c): (f64, f64) = (0.5 * sigma).sin_cos();
+        let pairs: Vec<Pair> = (0..20)
+            .map(|i| {
+                let phi = i as f64 * 0.7;
+                pair([s * phi.cos(), s * phi.sin(), c], [0., 0., 1.], sigma)
+            })
+            .collect();
+        let v = assess(&pairs, &UnitQuaternion::identity(), 3.7);
+        assert_eq!(v.n_inliers, 20);
+        match v.observability {
+            Observability::Unobservable { axis } => {
+                assert!((axis - Vector3::z()).norm() < 1e-9, "{axis}")
+            }
+            other => panic!("expected unobservable, got {other:?}"),
+        }
+        let z = Vector3::<f64>::z();
+        let var_z = z.dot(&(v.covariance * z));
+        assert!(var_z >= 0.5 * UNOBSERVABLE_VARIANCE, "{var_z}");
         assert!(v.covariance.iter().all(|x| x.is_finite()));
     }
 
