@@ -8,10 +8,12 @@
 //! - [`settings`]: `serve` flags, the TOML config file, validated [`ServeConfig`].
 //! - [`core_thread`]: the estimator on its own thread, with the recorder.
 //! - [`serve`]: the live server (TCP, Unix socket, UDP; sources and subscribers).
+//! - [`loadgen`]: the load generator behind `wahbad bench`.
 //! - [`simulate`]: the bench-scenario simulator (seeded stream of obs, rate, truth).
 
 pub mod core_thread;
 pub mod estimator;
+pub mod loadgen;
 pub mod record;
 pub mod serve;
 pub mod settings;

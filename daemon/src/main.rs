@@ -29,6 +29,8 @@ enum Command {
     Serve(cmd::serve::ServeCmdArgs),
     /// Subscribe to a running daemon and print its feed.
     Watch(cmd::watch::WatchArgs),
+    /// End-to-end figures (live TCP load, serve memory, replay throughput) as one JSON object.
+    Bench(cmd::bench::BenchArgs),
 }
 
 fn main() -> ExitCode {
@@ -49,6 +51,7 @@ fn main() -> ExitCode {
         Command::Study(args) => cmd::study::run(args),
         Command::Serve(args) => cmd::serve::run(args),
         Command::Watch(args) => cmd::watch::run(args),
+        Command::Bench(args) => cmd::bench::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
