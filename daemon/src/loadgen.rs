@@ -183,7 +183,11 @@ impl Scene {
     }
 }
 
-fn connect(addr: SocketAddr, role: Role, verdicts: Option<bool>) -> Result<(TcpStream, FrameDecoder), LoadError> {
+fn connect(
+    addr: SocketAddr,
+    role: Role,
+    verdicts: Option<bool>,
+) -> Result<(TcpStream, FrameDecoder), LoadError> {
     let mut stream = TcpStream::connect(addr)?;
     stream.set_nodelay(true)?;
     let hello = Message::Hello(Hello {
@@ -199,7 +203,9 @@ fn connect(addr: SocketAddr, role: Role, verdicts: Option<bool>) -> Result<(TcpS
     let mut decoder = FrameDecoder::new();
     match read_message(&mut stream, &mut decoder, Duration::from_secs(5))? {
         Some(Message::Welcome(_)) => Ok((stream, decoder)),
-        other => Err(LoadError::Protocol(format!("expected welcome, got {other:?}"))),
+        other => Err(LoadError::Protocol(format!(
+            "expected welcome, got {other:?}"
+        ))),
     }
 }
 
@@ -225,9 +231,18 @@ fn read_message(
         }
         stream.set_read_timeout(Some(left.max(Duration::from_millis(1))))?;
         match stream.read(&mut chunk) {
-            Ok(0) => return Err(LoadError::Protocol("the daemon closed the connection".into())),
+            Ok(0) => {
+                return Err(LoadError::Protocol(
+                    "the daemon closed the connection".into(),
+                ))
+            }
             Ok(n) => decoder.push(&chunk[..n]),
-            Err(e) if matches!(e.kind(), io::ErrorKind::WouldBlock | io::ErrorKind::TimedOut) => {
+            Err(e)
+                if matches!(
+                    e.kind(),
+                    io::ErrorKind::WouldBlock | io::ErrorKind::TimedOut
+                ) =>
+            {
                 return Ok(None)
             }
             Err(e) => return Err(e.into()),
@@ -242,7 +257,11 @@ struct Received {
     lagged: usize,
 }
 
-fn subscribe(mut stream: TcpStream, mut decoder: FrameDecoder, stop: Arc<AtomicBool>) -> Result<Received, LoadError> {
+fn subscribe(
+    mut stream: TcpStream,
+    mut decoder: FrameDecoder,
+    stop: Arc<AtomicBool>,
+) -> Result<Received, LoadError> {
     let mut got = Received::default();
     while !stop.load(Ordering::Relaxed) {
         match read_message(&mut stream, &mut decoder, Duration::from_millis(100))? {
@@ -353,7 +372,8 @@ pub fn run(spec: &LoadSpec) -> Result<LoadReport, LoadError> {
         sent = end;
     }
     let send_s = start.elapsed().as_secs_f64();
-    let (report, drain) = drained_status(&mut source, &mut src_decoder, sent, Duration::from_secs(30))?;
+    let (report, drain) =
+        drained_status(&mut source, &mut src_decoder, sent, Duration::from_secs(30))?;
     // Time for the last solution to come back, then stop the subscriber.
     std::thread::sleep(Duration::from_millis(300));
     stop.store(true, Ordering::Relaxed);

@@ -100,7 +100,10 @@ fn orchestrate(args: &BenchArgs) -> anyhow::Result<Value> {
     let mut memory = Value::Null;
     if !args.no_live {
         for &rate in &args.rates {
-            eprintln!("wahbad bench: live run at {rate}/s for {} s", args.duration_s);
+            eprintln!(
+                "wahbad bench: live run at {rate}/s for {} s",
+                args.duration_s
+            );
             live.push(live_run(rate, args.duration_s, args.verdicts, 0.25)?);
         }
         if args.memory_rate > 0.0 {
@@ -346,8 +349,10 @@ fn replay_figures(runs: usize) -> anyhow::Result<Value> {
     }
     out.insert(
         "note".into(),
-        json!("in-process: simulator library + record writer into memory, read back with the \
-               record reader; `wahbad replay` / `simulate --out` are not on this branch"),
+        json!(
+            "in-process: simulator library + record writer into memory, read back with the \
+               record reader; `wahbad replay` / `simulate --out` are not on this branch"
+        ),
     );
     Ok(Value::Object(out))
 }

@@ -143,7 +143,7 @@ impl Propagator {
     /// built range) to the epoch.
     pub fn to_epoch(&self, t: i64) -> UnitQuaternion<f64> {
         let k = self.knots.partition_point(|k| k.t >= t).saturating_sub(1);
-        self.from_knot(k, t)
+        self.carried_by_knot(k, t)
     }
 
     /// A cursor for [`Propagator::to_epoch_walk`], before the oldest knot.
@@ -161,10 +161,10 @@ impl Propagator {
             m -= 1;
         }
         cursor.0 = m;
-        self.from_knot(m.saturating_sub(1), t)
+        self.carried_by_knot(m.saturating_sub(1), t)
     }
 
-    fn from_knot(&self, k: usize, t: i64) -> UnitQuaternion<f64> {
+    fn carried_by_knot(&self, k: usize, t: i64) -> UnitQuaternion<f64> {
         let knot = &self.knots[k];
         knot.c * segment(&knot.w_before, knot.t - t)
     }

@@ -31,9 +31,9 @@ use super::{svd, Estimate, Method, SolveError, SolveParams, Workspace};
 ///
 /// Three loops over the pairs, for speed only (the arithmetic of each pair and
 /// the order of the sums are those of a single loop, so results are bit for
-/// bit the same): residuals into `rho`; the weights of every pair without
-/// branches into `weight` (the division and square root then run on several
-/// pairs at once); the sums in pair order.
+/// bit the same): residuals into `rho`; the weights of every pair into
+/// `work_w`, so the divisions and square roots of different pairs overlap
+/// instead of each waiting on the previous pair's sums; the sums in pair order.
 fn pass(ws: &mut Workspace, a: &Matrix3<f64>, mu: f64) -> (f64, Matrix3<f64>, usize) {
     let (lower, upper, mm) = (mu / (mu + 1.0), (mu + 1.0) / mu, mu * (mu + 1.0));
     let n = ws.pairs.len();
@@ -61,7 +61,13 @@ fn pass(ws: &mut Workspace, a: &Matrix3<f64>, mu: f64) -> (f64, Matrix3<f64>, us
     }
     let mut cost = 0.0;
     let mut sum = ProfileSum::default();
-    for (((p, &rho), &u), &iv) in ws.pairs.iter().zip(&ws.rho).zip(&ws.work_w).zip(&ws.inv_var) {
+    for (((p, &rho), &u), &iv) in ws
+        .pairs
+        .iter()
+        .zip(&ws.rho)
+        .zip(&ws.work_w)
+        .zip(&ws.inv_var)
+    {
         cost += rho.min(1.0);
         if u > 0.0 {
             sum.add(u * iv, &p.b, &p.r);

@@ -14,8 +14,7 @@ pub fn decode_body(body: &[u8]) -> Result<Message, FrameError> {
     if body.is_empty() {
         return Err(FrameError::ZeroLength);
     }
-    let skimmed =
-        skim(body).map_err(|(fault, ids)| fault_error(fault, ids.owned(), body.len()))?;
+    let skimmed = skim(body).map_err(|(fault, ids)| fault_error(fault, ids.owned(), body.len()))?;
     let ids = skimmed.ids;
     let name = match skimmed.type_name {
         None => {
