@@ -9,12 +9,14 @@
 //! - [`settings`]: `serve` flags, the TOML config file, validated [`ServeConfig`].
 //! - [`core_thread`]: the estimator on its own thread, with the recorder.
 //! - [`serve`]: the live server (TCP, Unix socket, UDP; sources and subscribers).
+//! - [`loadgen`]: the load generator behind `wahbad bench`.
 //! - [`simulate`]: the bench-scenario simulator (seeded stream of obs, rate, truth).
 //! - [`report`]: replay outputs for people and tools (SVG report, CCSDS AEM).
 //! - [`svg_doc`]: a small SVG document builder shared by the study chart and the report.
 
 pub mod core_thread;
 pub mod estimator;
+pub mod loadgen;
 pub mod record;
 pub mod replay;
 pub mod report;

@@ -38,6 +38,8 @@ enum Command {
     /// Run a recorded log through the estimator again: solutions, CSV,
     /// summary, error against truth; optionally paced and republished.
     Replay(cmd::replay::ReplayArgs),
+    /// End-to-end figures (live TCP load, serve memory, replay throughput) as one JSON object.
+    Bench(cmd::bench::BenchArgs),
 }
 
 fn main() -> ExitCode {
@@ -55,6 +57,7 @@ fn main() -> ExitCode {
         Command::Simulate(args) => cmd::simulate::run(args),
         Command::Demo(args) => cmd::demo::run(args),
         Command::Replay(args) => cmd::replay::run(args),
+        Command::Bench(args) => cmd::bench::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

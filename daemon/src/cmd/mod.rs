@@ -1,6 +1,7 @@
 //! Binary-only command modules: each turns validated flags into a library call
 //! and its output into files or stdout. `anyhow` lives here and in `main`.
 
+pub mod bench;
 pub mod demo;
 pub mod replay;
 pub mod serve;

@@ -613,11 +613,23 @@ impl Estimator {
         self.counts.clear();
         self.counts.resize(self.sensors.len(), (0, 0));
         let arw2 = self.config.gyro_arw * self.config.gyro_arw;
+        // Window order is time order: one forward walk over the knots, and one
+        // propagation per distinct time (the stars of a frame share theirs).
+        let mut cursor = self.propagator.cursor();
+        let mut carry: Option<(i64, UnitQuaternion<f64>)> = None;
         for obs_idx in range.clone() {
             let obs = self.obs.get(obs_idx);
             let (b, sigma) = if propagated {
                 let dt_s = (epoch - obs.t) as f64 / NS_PER_S;
-                let b = self.propagator.to_epoch(obs.t) * obs.b;
+                let c = match carry {
+                    Some((t, c)) if t == obs.t => c,
+                    _ => {
+                        let c = self.propagator.to_epoch_walk(obs.t, &mut cursor);
+                        carry = Some((obs.t, c));
+                        c
+                    }
+                };
+                let b = c * obs.b;
                 (b, (obs.sigma * obs.sigma + arw2 * dt_s).sqrt())
             } else {
                 (obs.b, obs.sigma)

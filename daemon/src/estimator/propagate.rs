@@ -150,10 +150,36 @@ impl Propagator {
     /// built range) to the epoch.
     pub fn to_epoch(&self, t: i64) -> UnitQuaternion<f64> {
         let k = self.knots.partition_point(|k| k.t >= t).saturating_sub(1);
+        self.carried_by_knot(k, t)
+    }
+
+    /// A cursor for [`Propagator::to_epoch_walk`], before the oldest knot.
+    pub fn cursor(&self) -> KnotCursor {
+        KnotCursor(self.knots.len())
+    }
+
+    /// [`Propagator::to_epoch`] for times visited in non-decreasing order: the
+    /// cursor walks the knots forward instead of a binary search per call
+    /// (same knot, same result bit for bit).
+    pub fn to_epoch_walk(&self, t: i64, cursor: &mut KnotCursor) -> UnitQuaternion<f64> {
+        // `cursor.0` is the number of knots with `k.t >= t` (knots descend in time).
+        let mut m = cursor.0.min(self.knots.len());
+        while m > 0 && self.knots[m - 1].t < t {
+            m -= 1;
+        }
+        cursor.0 = m;
+        self.carried_by_knot(m.saturating_sub(1), t)
+    }
+
+    fn carried_by_knot(&self, k: usize, t: i64) -> UnitQuaternion<f64> {
         let knot = &self.knots[k];
         knot.c * segment(&knot.w_before, knot.t - t)
     }
 }
+
+/// Position of a forward walk over a [`Propagator`]'s knots.
+#[derive(Debug, Clone, Copy)]
+pub struct KnotCursor(usize);
 
 #[cfg(test)]
 mod tests {
@@ -210,6 +236,24 @@ mod tests {
         let expected = UnitQuaternion::from_scaled_axis(Vector3::new(-0.06, 0.0, 0.0))
             * UnitQuaternion::from_scaled_axis(Vector3::new(0.0, 0.0, -0.05));
         assert!(c.angle_to(&expected) < 1e-14);
+    }
+
+    #[test]
+    fn forward_walk_matches_the_binary_search_bit_for_bit() {
+        let mut rates = RateBuffer::default();
+        for i in 0..20 {
+            let w = Vector3::new(0.1 * i as f64, -0.05, 0.02 * (i % 3) as f64);
+            rates.insert(RateSample { t: i * 10 * MS, w }, 100);
+        }
+        let mut prop = Propagator::default();
+        prop.build(&rates, 15 * MS, 180 * MS);
+        let mut cursor = prop.cursor();
+        // Ascending times, with repeats, on and between knots.
+        for t in [15, 15, 20, 23, 30, 30, 31, 99, 100, 150, 179, 180].map(|ms| ms * MS) {
+            let walked = prop.to_epoch_walk(t, &mut cursor);
+            let searched = prop.to_epoch(t);
+            assert_eq!(walked.coords, searched.coords, "t = {t}");
+        }
     }
 
     #[test]

@@ -27,30 +27,48 @@ use super::refit::chord2;
 use super::rotation::{nearest_rotation, ProfileSum};
 use super::{svd, Estimate, Method, SolveError, SolveParams, Workspace};
 
-/// The closed-form TLS weight of normalised residual `rho` at `mu`, and
-/// whether it is fractional; `lower = μ/(μ+1)`, `upper = (μ+1)/μ`, `mm = μ(μ+1)`.
-#[inline]
-fn tls_weight(rho: f64, mu: f64, lower: f64, upper: f64, mm: f64) -> (f64, bool) {
-    if rho <= lower {
-        (1.0, false)
-    } else if rho >= upper {
-        (0.0, false)
-    } else {
-        (((mm / rho).sqrt() - mu).clamp(0.0, 1.0), true)
-    }
-}
-
 /// One pass at `a`: TLS cost, and the profile matrix and fractional-weight count of the weights at `mu`.
-fn pass(ws: &Workspace, a: &Matrix3<f64>, mu: f64) -> (f64, Matrix3<f64>, usize) {
-    let mut cost = 0.0;
-    let mut n_band = 0;
-    let mut sum = ProfileSum::default();
+///
+/// Three loops over the pairs, for speed only (the arithmetic of each pair and
+/// the order of the sums are those of a single loop, so results are bit for
+/// bit the same): residuals into `rho`; the weights of every pair into
+/// `work_w`, so the divisions and square roots of different pairs overlap
+/// instead of each waiting on the previous pair's sums; the sums in pair order.
+fn pass(ws: &mut Workspace, a: &Matrix3<f64>, mu: f64) -> (f64, Matrix3<f64>, usize) {
     let (lower, upper, mm) = (mu / (mu + 1.0), (mu + 1.0) / mu, mu * (mu + 1.0));
-    for ((p, &inv_g), &iv) in ws.pairs.iter().zip(&ws.resid).zip(&ws.inv_var) {
-        let rho = chord2(a, p) * inv_g;
+    let n = ws.pairs.len();
+    ws.rho.clear();
+    ws.rho.extend(
+        ws.pairs
+            .iter()
+            .zip(&ws.resid)
+            .map(|(p, &inv_g)| chord2(a, p) * inv_g),
+    );
+    // The closed-form TLS weights (module doc): 1, fractional in the band, 0.
+    ws.work_w.resize(n, 0.0);
+    let mut n_band = 0;
+    for (w, &rho) in ws.work_w.iter_mut().zip(&ws.rho) {
+        let fractional = ((mm / rho).sqrt() - mu).clamp(0.0, 1.0);
+        let (weight, in_band) = if rho <= lower {
+            (1.0, false)
+        } else if rho >= upper {
+            (0.0, false)
+        } else {
+            (fractional, true)
+        };
+        *w = weight;
+        n_band += usize::from(in_band);
+    }
+    let mut cost = 0.0;
+    let mut sum = ProfileSum::default();
+    for (((p, &rho), &u), &iv) in ws
+        .pairs
+        .iter()
+        .zip(&ws.rho)
+        .zip(&ws.work_w)
+        .zip(&ws.inv_var)
+    {
         cost += rho.min(1.0);
-        let (u, fractional) = tls_weight(rho, mu, lower, upper, mm);
-        n_band += usize::from(fractional);
         if u > 0.0 {
             sum.add(u * iv, &p.b, &p.r);
         }

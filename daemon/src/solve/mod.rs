@@ -237,6 +237,8 @@ pub(crate) struct Workspace {
     pub resid: Vec<f64>,
     /// Inlier flags of the current refit set.
     pub inl: Vec<bool>,
+    /// Per-pair normalised residuals (GNC).
+    pub rho: Vec<f64>,
 }
 
 impl Workspace {

@@ -14,20 +14,20 @@ pub fn decode_body(body: &[u8]) -> Result<Message, FrameError> {
     if body.is_empty() {
         return Err(FrameError::ZeroLength);
     }
-    let skimmed = skim(body).map_err(|(fault, ids)| fault_error(fault, ids, body.len()))?;
+    let skimmed = skim(body).map_err(|(fault, ids)| fault_error(fault, ids.owned(), body.len()))?;
     let ids = skimmed.ids;
     let name = match skimmed.type_name {
         None => {
             return Err(FrameError::MissingKey {
                 key: "type".into(),
-                ids,
+                ids: ids.owned(),
             })
         }
         Some(Err(found)) => {
             return Err(FrameError::WrongType {
                 key: "type".into(),
                 detail: format!("expected a string, found a MessagePack {found}"),
-                ids,
+                ids: ids.owned(),
             })
         }
         Some(Ok(name)) => name,
@@ -35,10 +35,15 @@ pub fn decode_body(body: &[u8]) -> Result<Message, FrameError> {
     if !MESSAGE_TYPES.contains(&name) {
         return Err(FrameError::UnknownType {
             name: name.to_string(),
-            ids,
+            ids: ids.owned(),
         });
     }
-    decode_typed(body, name).map_err(|err| serde_error(err, ids))
+    // Fast path: plain serde. The path-tracking pass runs only to word an
+    // error, so a good message does not pay for it and errors read the same.
+    if let Ok(msg) = decode_plain(body, name) {
+        return Ok(msg);
+    }
+    decode_typed(body, name).map_err(|err| serde_error(err, ids.owned()))
 }
 
 /// Decodes one datagram (a bare body, no prefix) into a message.
@@ -66,6 +71,27 @@ fn deserializer(
     // MAX_DEPTH + 1 admits exactly MAX_DEPTH levels (the structural pass's rule).
     de.set_max_depth(MAX_DEPTH + 1);
     de
+}
+
+/// [`decode_typed`] without path tracking.
+fn decode_plain(body: &[u8], name: &str) -> Result<Message, rmp_serde::decode::Error> {
+    use serde::Deserialize;
+    let mut de = deserializer(body);
+    let de = &mut de;
+    Ok(match name {
+        "hello" => Message::Hello(Deserialize::deserialize(de)?),
+        "welcome" => Message::Welcome(Deserialize::deserialize(de)?),
+        "error" => Message::Error(Deserialize::deserialize(de)?),
+        "obs" => Message::Obs(Deserialize::deserialize(de)?),
+        "rate" => Message::Rate(Deserialize::deserialize(de)?),
+        "truth" => Message::Truth(Deserialize::deserialize(de)?),
+        "reject" => Message::Reject(Deserialize::deserialize(de)?),
+        "solution" => Message::Solution(Deserialize::deserialize(de)?),
+        "alert" => Message::Alert(Deserialize::deserialize(de)?),
+        "lagged" => Message::Lagged(Deserialize::deserialize(de)?),
+        "status" => Message::Status(Deserialize::deserialize(de)?),
+        other => unreachable!("type {other:?} is checked against MESSAGE_TYPES first"),
+    })
 }
 
 /// Serde pass: the struct named by `type` straight from the bytes. Its own

@@ -10,6 +10,24 @@
 
 use super::{MessageIds, MAX_DEPTH};
 
+/// `sensor` and `seq` as read, borrowed from the body; made owned
+/// ([`MessageIds`]) only for an error, so a good message costs no allocation here.
+#[derive(Debug, Clone, Copy, Default)]
+pub(super) struct Ids<'a> {
+    pub sensor: Option<&'a str>,
+    pub seq: Option<u64>,
+}
+
+impl Ids<'_> {
+    /// The owned form carried by errors.
+    pub fn owned(self) -> MessageIds {
+        MessageIds {
+            sensor: self.sensor.map(str::to_string),
+            seq: self.seq,
+        }
+    }
+}
+
 /// What the structural pass learned about a well-formed top-level map.
 #[derive(Debug)]
 pub(super) struct Skim<'a> {
@@ -17,7 +35,7 @@ pub(super) struct Skim<'a> {
     /// string, `None` when absent.
     pub type_name: Option<Result<&'a str, &'static str>>,
     /// Best-effort `sensor` and `seq`.
-    pub ids: MessageIds,
+    pub ids: Ids<'a>,
 }
 
 /// Why the structural pass refused the value.
@@ -215,14 +233,14 @@ impl<'a> Reader<'a> {
 }
 
 /// Runs the structural pass over `body`; on failure also returns the ids read so far.
-pub(super) fn skim(body: &[u8]) -> Result<Skim<'_>, (Fault, MessageIds)> {
+pub(super) fn skim(body: &[u8]) -> Result<Skim<'_>, (Fault, Ids<'_>)> {
     let mut rd = Reader { buf: body, pos: 0 };
-    let mut ids = MessageIds::default();
-    let top = rd.item().map_err(|f| (f, MessageIds::default()))?;
+    let mut ids = Ids::default();
+    let top = rd.item().map_err(|f| (f, Ids::default()))?;
     let Item::Map(n_pairs) = top else {
         let found = top.kind();
         rd.skip(top.n_children(), 1)
-            .map_err(|f| (f, MessageIds::default()))?;
+            .map_err(|f| (f, Ids::default()))?;
         let fault = if rd.pos < body.len() {
             Fault::Trailing { used: rd.pos }
         } else {
@@ -263,7 +281,7 @@ pub(super) fn skim(body: &[u8]) -> Result<Skim<'_>, (Fault, MessageIds)> {
                     other => Err(other.kind()),
                 });
             }
-            (Some("sensor"), Item::Str(s)) => ids.sensor = Some((*s).to_string()),
+            (Some("sensor"), Item::Str(s)) => ids.sensor = Some(*s),
             (Some("seq"), Item::Uint(v)) => ids.seq = Some(*v),
             _ => {}
         }
