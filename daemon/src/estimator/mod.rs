@@ -33,7 +33,12 @@
 //! # Solutions
 //!
 //! - Each observation is carried to `E` by the rates (see [`propagate`]) and its
-//!   σ grows by `gyro_arw · √(E - t)` in quadrature. A window with no rate sample
+//!   σ grows by `gyro_arw · √(E - t)` in quadrature. The gyro's random walk
+//!   between a time and the epoch is shared by every observation of about that
+//!   time, so averaging many of them does not shrink it: a solved epoch's
+//!   covariance also carries the common-mode term `gyro_arw² · Δt̄ · I`, with
+//!   `Δt̄` the information-weighted mean age `Σ σ_i⁻² (E − t_i) / Σ σ_i⁻²` of
+//!   the inliers (conservative: the per-observation share is counted too). A window with no rate sample
 //!   in `(E - S, E]` is treated as static, σ unchanged, and the solution carries
 //!   `propagated: false`; when rates were used the key is absent.
 //! - The previous epoch's estimate, carried by the rates, warm-starts the solver.
@@ -685,10 +690,21 @@ impl Estimator {
                             } else {
                                 SolutionStatus::Ok
                             };
+                            let common = if propagated {
+                                let times = range.clone().map(|i| self.obs.get(i).t);
+                                arw2 * mean_inlier_age_s(
+                                    &self.pairs,
+                                    &verdict.inliers,
+                                    times,
+                                    epoch,
+                                )
+                            } else {
+                                0.0
+                            };
                             (
                                 status,
                                 outcome.q,
-                                verdict.covariance,
+                                verdict.covariance + Matrix3::identity() * common,
                                 method,
                                 iterations,
                                 2.0,
@@ -876,4 +892,52 @@ fn alert(
         sensor,
         message,
     })
+}
+
+/// Information-weighted mean age of the inliers at `epoch`, seconds:
+/// `Σ σ_i⁻² (E − t_i) / Σ σ_i⁻²` over the pairs flagged inlier (`times` in pair order).
+fn mean_inlier_age_s(
+    pairs: &[Pair],
+    inliers: &[bool],
+    times: impl Iterator<Item = i64>,
+    epoch: i64,
+) -> f64 {
+    let (mut weighted, mut total) = (0.0, 0.0);
+    for ((pair, &inlier), t) in pairs.iter().zip(inliers).zip(times) {
+        if inlier {
+            let w = 1.0 / (pair.sigma * pair.sigma);
+            weighted += w * (epoch - t) as f64 / NS_PER_S;
+            total += w;
+        }
+    }
+    if total > 0.0 {
+        weighted / total
+    } else {
+        0.0
+    }
+}
+
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use nalgebra::Vector3;
+
+    #[test]
+    fn mean_inlier_age_weights_by_information_and_skips_outliers() {
+        // Derived in the test: σ = 1 at age 1 s and σ = 2 at age 2 s give
+        // weights 1 and 1/4, so (1·1 + 0.25·2) / 1.25 = 1.2 s; the outlier
+        // (age 10 s) does not count.
+        let pair = |sigma| Pair {
+            b: Vector3::x(),
+            r: Vector3::x(),
+            sigma,
+        };
+        let pairs = [pair(1.0), pair(2.0), pair(1.0)];
+        let epoch = 10_000_000_000;
+        let times = [9_000_000_000, 8_000_000_000, 0];
+        let age = mean_inlier_age_s(&pairs, &[true, true, false], times.into_iter(), epoch);
+        assert!((age - 1.2).abs() < 1e-12, "{age}");
+        assert_eq!(mean_inlier_age_s(&pairs, &[false; 3], times.into_iter(), epoch), 0.0);
+    }
 }
