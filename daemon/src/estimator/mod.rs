@@ -917,7 +917,6 @@ fn mean_inlier_age_s(
     }
 }
 
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -938,6 +937,9 @@ mod tests {
         let times = [9_000_000_000, 8_000_000_000, 0];
         let age = mean_inlier_age_s(&pairs, &[true, true, false], times.into_iter(), epoch);
         assert!((age - 1.2).abs() < 1e-12, "{age}");
-        assert_eq!(mean_inlier_age_s(&pairs, &[false; 3], times.into_iter(), epoch), 0.0);
+        assert_eq!(
+            mean_inlier_age_s(&pairs, &[false; 3], times.into_iter(), epoch),
+            0.0
+        );
     }
 }
