@@ -25,6 +25,12 @@ export RUSTC_BOOTSTRAP=1
 if [ ! -d corpus/frame_stream ]; then
   cargo run --quiet --example gen_corpus -- corpus
 fi
+# Seeds from the committed logs too: their first 16 KiB (the header and the
+# first records; -max_len below keeps inputs that short anyway).
+mkdir -p corpus/log_reader
+for log in ../replay-logs/*.wlog; do
+  head -c 16384 "$log" >"corpus/log_reader/committed-$(basename "$log")"
+done
 cargo fuzz build -s none
 mkdir -p logs
 status=0
