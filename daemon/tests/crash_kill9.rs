@@ -26,7 +26,7 @@ use std::time::{Duration, Instant};
 
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use serve_support::{scene, Client, Daemon, TempDir};
+use serve_support::{capture_feed, scene, Client, Daemon, TempDir};
 use wahbad::estimator::{Estimator, Output};
 use wahbad::record::{
     crc32, record_input, LogReader, ReadWarning, RecordKind, PREAMBLE_LEN, RECORD_HEAD_LEN,
@@ -86,21 +86,7 @@ fn trial(delay: Duration) -> Trial {
         "--latency-ms",
         "10",
     ]);
-    let mut sub = Client::tcp(daemon.tcp);
-    assert!(matches!(
-        sub.hello(Role::Subscriber, None),
-        Message::Welcome(_)
-    ));
-    let subscriber = std::thread::spawn(move || {
-        let mut live = Vec::new();
-        while let Some(msg) = sub.recv(Duration::from_secs(10)) {
-            match msg {
-                Message::Solution(_) | Message::Alert(_) => live.push(encode_frame(&msg)),
-                other => panic!("unexpected {other:?} (a lagged feed cannot be compared)"),
-            }
-        }
-        live
-    });
+    let subscriber = capture_feed(daemon.tcp, Duration::from_secs(10));
     let mut source = Client::tcp(daemon.tcp);
     assert!(matches!(
         source.hello(Role::Source, None),
@@ -128,7 +114,7 @@ fn trial(delay: Duration) -> Trial {
     assert!(!status.success(), "killed daemon exited successfully");
     stop.store(true, Ordering::Relaxed);
     streamer.join().unwrap();
-    let live = subscriber.join().unwrap();
+    let (live, _) = subscriber.join().unwrap();
 
     let bytes = std::fs::read(&log).unwrap();
     let (n_whole, whole_end) = walk_whole_records(&bytes);

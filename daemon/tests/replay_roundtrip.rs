@@ -12,7 +12,7 @@ use std::io::Write;
 use std::time::Duration;
 
 use replay_support::{estimator_table, replay, text, write_config_file, TempDir};
-use serve_support::{Client, Daemon};
+use serve_support::{capture_feed, Client, Daemon};
 use wahbad::simulate::{Scenario, Simulator};
 use wahbad_protocol::{encode_frame, Message, Role};
 
@@ -36,25 +36,7 @@ fn a_recorded_serve_session_replays_bit_for_bit() {
         "--subscriber-queue",
         "65536",
     ]);
-    let mut sub = Client::tcp(daemon.tcp);
-    assert!(matches!(
-        sub.hello(Role::Subscriber, None),
-        Message::Welcome(_)
-    ));
-    let subscriber = std::thread::spawn(move || {
-        let mut live = Vec::new();
-        while let Some(msg) = sub.recv(Duration::from_secs(30)) {
-            match msg {
-                Message::Solution(_) | Message::Alert(_) => live.push(encode_frame(&msg)),
-                Message::Error(err) => {
-                    assert_eq!(err.code, "shutdown");
-                    return (live, true);
-                }
-                other => panic!("unexpected {other:?}"),
-            }
-        }
-        (live, false)
-    });
+    let subscriber = capture_feed(daemon.tcp, Duration::from_secs(30));
 
     let mut source = Client::tcp(daemon.tcp);
     assert!(matches!(
@@ -157,25 +139,7 @@ fn a_session_fed_by_simulate_to_replays_bit_for_bit() {
         "--subscriber-queue",
         "65536",
     ]);
-    let mut sub = Client::tcp(daemon.tcp);
-    assert!(matches!(
-        sub.hello(Role::Subscriber, None),
-        Message::Welcome(_)
-    ));
-    let subscriber = std::thread::spawn(move || {
-        let mut live = Vec::new();
-        while let Some(msg) = sub.recv(Duration::from_secs(30)) {
-            match msg {
-                Message::Solution(_) | Message::Alert(_) => live.push(encode_frame(&msg)),
-                Message::Error(err) => {
-                    assert_eq!(err.code, "shutdown");
-                    return live;
-                }
-                other => panic!("unexpected {other:?}"),
-            }
-        }
-        live
-    });
+    let subscriber = capture_feed(daemon.tcp, Duration::from_secs(30));
     let source = std::process::Command::new(env!("CARGO_BIN_EXE_wahbad"))
         .args(["simulate", "--duration", "30", "--speed", "20", "--to"])
         .arg(daemon.tcp.to_string())
@@ -189,7 +153,8 @@ fn a_session_fed_by_simulate_to_replays_bit_for_bit() {
     std::thread::sleep(Duration::from_millis(300));
     let (status, stderr) = daemon.stop();
     assert_eq!(status.code(), Some(0), "{stderr}");
-    let live = subscriber.join().unwrap();
+    let (live, told) = subscriber.join().unwrap();
+    assert!(told, "the subscriber was not told `error shutdown`");
 
     let lines = dir.join("replayed.jsonl");
     let out = replay(&[

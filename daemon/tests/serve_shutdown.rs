@@ -9,7 +9,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
-use serve_support::{scene, Client, Daemon, TempDir};
+use serve_support::{capture_feed, scene, Client, Daemon, TempDir};
 use wahbad::estimator::{Estimator, Output};
 use wahbad::record::{record_input, LogReader, ReadWarning, Record};
 use wahbad_protocol::{encode_frame, Message, Role};
@@ -52,25 +52,7 @@ fn sigterm_while_streaming_exits_0_with_a_complete_recording_that_replays_bit_fo
         "--latency-ms",
         "30",
     ]);
-    let mut sub = Client::tcp(daemon.tcp);
-    assert!(matches!(
-        sub.hello(Role::Subscriber, None),
-        Message::Welcome(_)
-    ));
-    let subscriber = std::thread::spawn(move || {
-        let mut live = Vec::new();
-        while let Some(msg) = sub.recv(Duration::from_secs(20)) {
-            match msg {
-                Message::Solution(_) | Message::Alert(_) => live.push(encode_frame(&msg)),
-                Message::Error(err) => {
-                    assert_eq!(err.code, "shutdown");
-                    return (live, true);
-                }
-                other => panic!("unexpected {other:?}"),
-            }
-        }
-        (live, false)
-    });
+    let subscriber = capture_feed(daemon.tcp, Duration::from_secs(20));
     let stop = Arc::new(AtomicBool::new(false));
     let source = spawn_source(&daemon, stop.clone());
     std::thread::sleep(Duration::from_millis(1500));

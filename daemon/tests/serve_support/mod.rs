@@ -351,3 +351,32 @@ pub fn python_msgpack_ready() -> bool {
     );
     false
 }
+
+/// Subscribes to the daemon at `addr` and collects, on a thread, every
+/// solution and alert as its encoded frame, until the daemon says
+/// `error shutdown` (`told` is then true) or closes, or `idle` passes with
+/// nothing. Any other message (a `lagged` feed cannot be compared) panics.
+pub fn capture_feed(
+    addr: SocketAddr,
+    idle: Duration,
+) -> std::thread::JoinHandle<(Vec<Vec<u8>>, bool)> {
+    let mut sub = Client::tcp(addr);
+    assert!(matches!(
+        sub.hello(Role::Subscriber, None),
+        Message::Welcome(_)
+    ));
+    std::thread::spawn(move || {
+        let mut live = Vec::new();
+        while let Some(msg) = sub.recv(idle) {
+            match msg {
+                Message::Solution(_) | Message::Alert(_) => live.push(encode_frame(&msg)),
+                Message::Error(err) => {
+                    assert_eq!(err.code, "shutdown");
+                    return (live, true);
+                }
+                other => panic!("unexpected {other:?}"),
+            }
+        }
+        (live, false)
+    })
+}
