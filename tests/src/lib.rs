@@ -2,5 +2,7 @@
 //!
 //! - [`python`]: locating and running the Python reference scripts in
 //!   `tests/python/` (MessagePack reference implementation, SciPy).
+//! - [`random`]: seeded random geometry for the solver cross-checks.
 
 pub mod python;
+pub mod random;

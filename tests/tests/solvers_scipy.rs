@@ -13,7 +13,7 @@
 //! σ ≤ 1e-2 rad, within 1 % in at least 99 % of the cases and within 5 % in
 //! all (the two formulas agree exactly only on consistent data).
 
-use nalgebra::{Matrix3, Quaternion, UnitQuaternion, Vector3};
+use nalgebra::{Matrix3, Quaternion, UnitQuaternion};
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use serde::Deserialize;
@@ -21,39 +21,7 @@ use serde_json::json;
 use wahbad::solve::rotation::angle_between;
 use wahbad::{assess, Method, Observability, Pair, SolveParams, Solver};
 use wahbad_tests::python;
-
-fn unit(rng: &mut ChaCha8Rng) -> Vector3<f64> {
-    loop {
-        let v = Vector3::new(
-            rng.random_range(-1.0..1.0),
-            rng.random_range(-1.0..1.0),
-            rng.random_range(-1.0..1.0),
-        );
-        let n = v.norm();
-        if n > 0.1 && n <= 1.0 {
-            return v / n;
-        }
-    }
-}
-
-fn normal(rng: &mut ChaCha8Rng) -> f64 {
-    // Box–Muller.
-    let u1: f64 = rng.random_range(f64::EPSILON..1.0);
-    let u2: f64 = rng.random_range(0.0..1.0);
-    (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
-}
-
-/// `v` turned by a Gaussian tangent error of σ per axis.
-fn perturb(rng: &mut ChaCha8Rng, v: &Vector3<f64>, sigma: f64) -> Vector3<f64> {
-    let e1 = v.cross(&unit(rng)).normalize();
-    let e2 = v.cross(&e1);
-    let d = (e1 * normal(rng) + e2 * normal(rng)) * sigma;
-    let angle = d.norm();
-    if angle == 0.0 {
-        return *v;
-    }
-    (v * angle.cos() + d / angle * angle.sin()).normalize()
-}
+use wahbad_tests::random::{perturb, unit};
 
 #[derive(Clone, Copy, PartialEq, Debug)]
 enum Kind {

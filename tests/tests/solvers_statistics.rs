@@ -19,39 +19,7 @@ use rand_chacha::ChaCha8Rng;
 use wahbad::solve::rotation::angle_between;
 use wahbad::solve::CHI2_2DOF_999;
 use wahbad::{assess, Method, Observability, Pair, SolveError, SolveParams, Solver};
-
-fn unit(rng: &mut ChaCha8Rng) -> Vector3<f64> {
-    loop {
-        let v = Vector3::new(
-            rng.random_range(-1.0..1.0),
-            rng.random_range(-1.0..1.0),
-            rng.random_range(-1.0..1.0),
-        );
-        let n = v.norm();
-        if n > 0.1 && n <= 1.0 {
-            return v / n;
-        }
-    }
-}
-
-fn normal(rng: &mut ChaCha8Rng) -> f64 {
-    // Box–Muller.
-    let u1: f64 = rng.random_range(f64::EPSILON..1.0);
-    let u2: f64 = rng.random_range(0.0..1.0);
-    (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
-}
-
-/// `v` turned by a Gaussian tangent error of σ per axis (2 dof).
-fn perturb(rng: &mut ChaCha8Rng, v: &Vector3<f64>, sigma: f64) -> Vector3<f64> {
-    let e1 = v.cross(&unit(rng)).normalize();
-    let e2 = v.cross(&e1);
-    let d = (e1 * normal(rng) + e2 * normal(rng)) * sigma;
-    let angle = d.norm();
-    if angle == 0.0 {
-        return *v;
-    }
-    (v * angle.cos() + d / angle * angle.sin()).normalize()
-}
+use wahbad_tests::random::{perturb, unit};
 
 fn random_rotation(rng: &mut ChaCha8Rng) -> UnitQuaternion<f64> {
     UnitQuaternion::from_scaled_axis(unit(rng) * rng.random_range(0.0..std::f64::consts::PI))

@@ -75,7 +75,7 @@ pub async fn serve_stream<S>(
             Ok(Message::Hello(hello)) => hello,
             Ok(other) => {
                 bump(&shared.counters.hello_errors);
-                let message = format!("the first frame must be hello, got {}", type_name(&other));
+                let message = format!("the first frame must be hello, got {}", other.type_name());
                 tracing::info!(%peer, "connection refused: {message}");
                 close_with_error(&mut conn, ErrorCode::Hello, message).await;
                 return;
@@ -285,7 +285,7 @@ pub(super) fn source_input_from(msg: Message) -> Result<Input, Answer> {
             None,
             format!(
                 "a source sends obs, rate, truth or status; got {}",
-                type_name(&other)
+                other.type_name()
             ),
         )),
     }
@@ -356,7 +356,7 @@ async fn subscriber_loop<S: AsyncRead + AsyncWrite + Unpin>(
                         Message::Reject(Reject {
                             sensor: None,
                             seq: None,
-                            reason: format!("a subscriber sends only status; got {}", type_name(&other)),
+                            reason: format!("a subscriber sends only status; got {}", other.type_name()),
                         })
                     }
                     Err(err) => match err.to_reject() {
@@ -418,24 +418,6 @@ pub async fn close_with_error<S: AsyncRead + AsyncWrite + Unpin>(
     }
     let _ = timeout(ERROR_WRITE_TIMEOUT, conn.shutdown()).await;
     let _ = timeout(Duration::from_millis(500), conn.drain()).await;
-}
-
-/// The `type` string of a message, for texts.
-pub fn type_name(msg: &Message) -> &'static str {
-    match msg {
-        Message::Hello(_) => "hello",
-        Message::Welcome(_) => "welcome",
-        Message::Error(_) => "error",
-        Message::Obs(_) => "obs",
-        Message::Rate(_) => "rate",
-        Message::Truth(_) => "truth",
-        Message::Reject(_) => "reject",
-        Message::Solution(_) => "solution",
-        Message::Alert(_) => "alert",
-        Message::Lagged(_) => "lagged",
-        Message::Status(_) => "status",
-        _ => "an unexpected message",
-    }
 }
 
 /// Completes once the server's stop signal is set (or its sender is gone).
