@@ -128,18 +128,24 @@ fn a_udp_flood_drops_and_counts_and_never_crashes() {
     std::thread::sleep(Duration::from_millis(500));
     let report = status(daemon.tcp);
     assert!(report.accepted > 0, "nothing accepted");
+    // `dropped` counts datagrams that found no room and also accepted
+    // observations the estimator later let go (too old, window cap), so an
+    // observation can be both accepted and dropped; each is counted at most
+    // once in either column.
     assert!(
-        report.accepted + report.dropped + report.rejected <= n_sent,
-        "more counted than sent: {report:?}"
+        report.accepted + report.rejected <= n_sent,
+        "more accepted than sent: {report:?}"
+    );
+    assert!(
+        report.dropped + report.rejected <= n_sent,
+        "more dropped than sent: {report:?}"
     );
     // Stops cleanly after the flood: no crash, summary printed.
     let (exit, stderr) = daemon.stop();
     assert!(exit.success(), "exit {exit:?}: {stderr}");
     eprintln!(
-        "measured: {n_sent} datagrams sent, {} accepted, {} dropped (queue full or too old), {} lost in the kernel",
-        report.accepted,
-        report.dropped,
-        n_sent - report.accepted - report.dropped - report.rejected
+        "measured: {n_sent} datagrams sent, {} accepted, {} dropped (no room, too old or window cap)",
+        report.accepted, report.dropped,
     );
 }
 
