@@ -109,31 +109,40 @@ impl Published {
         }
     }
 
-    fn encode(output: &Output) -> Published {
+    /// Encodes `output`, moving it into the message (a solution is not
+    /// cloned for its lean form: its verdicts are taken out and put back).
+    fn encode(output: Output) -> Published {
         match output {
-            Output::Solution(solution) => {
-                let lean = solution.verdicts.as_ref().map(|_| {
-                    let mut lean = solution.clone();
-                    lean.verdicts = None;
-                    encode_frame(&Message::Solution(lean))
-                });
+            Output::Solution(mut solution) => {
+                let t = solution.t;
+                let verdicts = solution.verdicts.take();
+                let mut msg = Message::Solution(solution);
+                let lean = encode_frame(&msg);
+                let (Some(verdicts), Message::Solution(solution)) = (verdicts, &mut msg) else {
+                    return Published {
+                        full: lean,
+                        lean: None,
+                    };
+                };
+                solution.verdicts = Some(verdicts);
                 // Many verdicts can exceed the 65536-byte frame limit, which
                 // every subscriber would refuse: such a solution goes without them.
-                match try_encode_frame(&Message::Solution(solution.clone())) {
-                    Ok(full) => Published { full, lean },
+                match try_encode_frame(&msg) {
+                    Ok(full) => Published {
+                        full,
+                        lean: Some(lean),
+                    },
                     Err(err) => {
-                        tracing::warn!(t = solution.t, %err, "solution sent without verdicts");
-                        let full = lean.unwrap_or_else(|| {
-                            let mut lean = solution.clone();
-                            lean.verdicts = None;
-                            encode_frame(&Message::Solution(lean))
-                        });
-                        Published { full, lean: None }
+                        tracing::warn!(t, %err, "solution sent without verdicts");
+                        Published {
+                            full: lean,
+                            lean: None,
+                        }
                     }
                 }
             }
             Output::Alert(alert) => Published {
-                full: encode_frame(&Message::Alert(alert.clone())),
+                full: encode_frame(&Message::Alert(alert)),
                 lean: None,
             },
         }
@@ -295,19 +304,20 @@ impl Core {
                 self.stop_recording(err.to_string());
             }
         }
-        let ids = match &input {
-            Input::Obs(obs) => (Some(obs.sensor.clone()), Some(obs.seq)),
-            Input::Rate(rate) => (Some(rate.sensor.clone()), Some(rate.seq)),
-            _ => (None, None),
+        let seq = match &input {
+            Input::Obs(obs) => Some(obs.seq),
+            Input::Rate(rate) => Some(rate.seq),
+            _ => None,
         };
         if let Err(err) = self.estimator.ingest(input, &mut self.outputs) {
             bump(&self.counters.rejected);
-            tracing::debug!(sensor = ?ids.0, seq = ?ids.1, %err, "input rejected by the estimator");
+            let sensor = err.sensor();
+            tracing::debug!(sensor, seq, %err, "input rejected by the estimator");
             if let Some(reply) = reply {
                 // A source that does not read its rejects loses them; the feed never waits.
                 let _ = reply.try_send(Reject {
-                    sensor: ids.0,
-                    seq: ids.1,
+                    sensor: Some(sensor.to_string()),
+                    seq,
                     reason: err.to_string(),
                 });
             }
@@ -376,7 +386,7 @@ impl Core {
                 }
             }
             // No subscriber is not an error: the feed goes on.
-            let _ = self.feed.send(Arc::new(Published::encode(&output)));
+            let _ = self.feed.send(Arc::new(Published::encode(output)));
         }
     }
 

@@ -6,6 +6,12 @@
 
 use serde::{Deserialize, Serialize};
 
+/// A sensor id in the daemon's outputs (verdicts, per-sensor counts): a
+/// string that is copied, not allocated, when short (up to 23 bytes inline,
+/// shared beyond), because every solution repeats the id of each observation
+/// of its window. On the wire it is an ordinary MessagePack string.
+pub type SensorName = smol_str::SmolStr;
+
 /// Protocol version spoken by this crate.
 pub const PROTOCOL_VERSION: u32 = 1;
 
@@ -315,7 +321,7 @@ impl SolutionStatus {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct SensorCount {
     /// Sensor id.
-    pub sensor: String,
+    pub sensor: SensorName,
     /// Observations of this sensor in the window.
     pub n: u32,
     /// Of those, inliers.
@@ -326,7 +332,7 @@ pub struct SensorCount {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ObsVerdict {
     /// Sensor id.
-    pub sensor: String,
+    pub sensor: SensorName,
     /// The observation's sequence number.
     pub seq: u64,
     /// Angle between the propagated `b` and `A r`, radians.

@@ -78,8 +78,8 @@ use std::collections::BTreeMap;
 
 use nalgebra::{Matrix3, UnitQuaternion, Vector3};
 use wahbad_protocol::{
-    Alert, AlertState, ObsVerdict, SensorCount, Solution, SolutionStatus, ValidObs, ValidRate,
-    ValidTruth,
+    Alert, AlertState, ObsVerdict, SensorCount, SensorName, Solution, SolutionStatus, ValidObs,
+    ValidRate, ValidTruth,
 };
 
 pub use alert::{LevelAlert, StaleAlert};
@@ -209,7 +209,7 @@ impl IngestError {
 /// What the estimator knows of one sensor id.
 #[derive(Debug, Clone)]
 struct SensorState {
-    name: String,
+    name: SensorName,
     sigma: Option<f64>,
     enabled: bool,
     last_t: Option<i64>,
@@ -376,7 +376,7 @@ impl Estimator {
                 .filter(|c| c.enabled)
                 .map(|c| StaleAlert::new(c.stale_allowance_ns(default_stale_ms))),
             inliers: LevelAlert::from_config(&self.config.alerts.sensor_inliers),
-            name: name.clone(),
+            name: SensorName::from(name.as_str()),
         };
         let at = self
             .sensor_order
@@ -453,7 +453,7 @@ impl Estimator {
                     state: change,
                     value: silence_s,
                     threshold,
-                    sensor: Some(state.name.clone()),
+                    sensor: Some(state.name.to_string()),
                     message: format!(
                         "sensor `{}` is sending again after {silence_s:.3} s of silence",
                         state.name
@@ -542,7 +542,7 @@ impl Estimator {
                     state: change,
                     value: silence_s,
                     threshold,
-                    sensor: Some(state.name.clone()),
+                    sensor: Some(state.name.to_string()),
                     message: format!(
                         "sensor `{}` silent for {silence_s:.3} s, allowance {threshold:.3} s",
                         state.name
@@ -849,7 +849,7 @@ impl Estimator {
                     change,
                     share,
                     level,
-                    Some(name.clone()),
+                    Some(name.to_string()),
                     message,
                 ));
             }

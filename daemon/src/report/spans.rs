@@ -80,8 +80,8 @@ pub(crate) fn sensor_names(solutions: &[Solution]) -> Vec<String> {
         let from_counts = solution.sensors.iter().map(|c| &c.sensor);
         let from_verdicts = solution.verdicts.iter().flatten().map(|v| &v.sensor);
         for name in from_counts.chain(from_verdicts) {
-            if !names.contains(name) {
-                names.push(name.clone());
+            if !names.iter().any(|n| n == name) {
+                names.push(name.to_string());
             }
         }
     }
