@@ -6,26 +6,27 @@
 //!   process's resident memory (`/proc/PID/status` `VmRSS`, `VmHWM`) and CPU
 //!   time are sampled while it runs;
 //! - memory: the same at `--memory-rate` for `--memory-s`, RSS sampled every second;
-//! - replay: the default simulated scenario and a dense variant (40 stars per
-//!   frame) written in memory as a recording, then read back twice: decode-only
-//!   (read + frame decode + validate) and full replay (the same plus the
-//!   estimator). Done in-process with the simulator library and the record
-//!   writer, because the `replay` and `simulate --out` commands are not on this
-//!   branch.
+//! - replay: logs of the default simulated scenario and of a dense variant
+//!   (40 stars per frame) written by `wahbad simulate --out`; `wahbad replay`
+//!   timed on them as a child process, and the same logs read in this process
+//!   twice: decode-only (read + frame decode + validate) and full replay (the
+//!   same plus the estimator), for the ratio.
 
+use std::ffi::OsStr;
 use std::io::{BufRead, BufReader};
 use std::net::SocketAddr;
+use std::path::{Path, PathBuf};
 use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
 use anyhow::{anyhow, bail, Context};
 use clap::Args;
 use serde_json::{json, Value};
-use wahbad::estimator::{Estimator, EstimatorConfig, Output};
+use wahbad::estimator::{Estimator, Output};
 use wahbad::loadgen::{self, LoadSpec};
-use wahbad::record::{record_input, unix_now_ns, LogHeader, LogReader, LogWriter};
-use wahbad::simulate::{Scenario, Simulator};
-use wahbad_protocol::{encode_body, PROTOCOL_VERSION};
+use wahbad::record::{record_input, LogReader};
+use wahbad::replay::resolve_config;
+use wahbad::settings::EstimatorFlags;
 
 use super::Failure;
 
@@ -47,6 +48,9 @@ pub struct BenchArgs {
     /// Repetitions of each replay measurement (the median is reported).
     #[arg(long, default_value_t = 5)]
     pub replay_runs: usize,
+    /// Seconds of data time of the simulated replay logs.
+    #[arg(long, default_value_t = 600.0)]
+    pub replay_duration_s: f64,
     /// Skip the live and memory runs.
     #[arg(long)]
     pub no_live: bool,
@@ -115,7 +119,7 @@ fn orchestrate(args: &BenchArgs) -> anyhow::Result<Value> {
         }
     }
     eprintln!("wahbad bench: replay figures");
-    let replay = replay_figures(args.replay_runs.max(1))?;
+    let replay = replay_figures(args.replay_runs.max(1), args.replay_duration_s)?;
     Ok(json!({
         "machine": machine(),
         "latency_definition": "from the load generator handing the frame of the epoch-closing \
@@ -250,40 +254,14 @@ fn proc_cpu_s(pid: u32) -> Option<f64> {
     Some((utime + stime) / 100.0)
 }
 
-/// A scenario as an in-memory recording, with the data duration in s.
-fn recording(scenario: &Scenario) -> anyhow::Result<(Vec<u8>, f64, usize)> {
-    let sim = Simulator::new(scenario)?;
-    let duration_s = sim.duration_ns() as f64 * 1e-9;
-    let header = LogHeader {
-        created_ns: unix_now_ns(),
-        program: format!("wahbad {}", env!("CARGO_PKG_VERSION")),
-        protocol: PROTOCOL_VERSION,
-        origin: "bench".into(),
-        config: String::new(),
-    };
-    let mut writer = LogWriter::new(Vec::new(), &header)?;
-    let mut n_messages = 0;
-    let t0 = unix_now_ns();
-    for msg in sim {
-        let t = match &msg {
-            wahbad_protocol::Message::Obs(o) => o.t,
-            wahbad_protocol::Message::Rate(r) => r.t,
-            wahbad_protocol::Message::Truth(t) => t.t,
-            _ => 0,
-        };
-        writer.write_frame(t0 + t, &encode_body(&msg))?;
-        n_messages += 1;
-    }
-    let bytes = writer.finish("finished", unix_now_ns())?;
-    Ok((bytes, duration_s, n_messages))
-}
-
-/// One pass over the log: decode + validate, and the estimator when `estimate`.
+/// One pass over the log: decode + validate, and the estimator (configured
+/// from the log header, as `wahbad replay` does) when `estimate`.
 /// Returns (seconds, observations, solutions).
 fn pass(log: &[u8], estimate: bool) -> anyhow::Result<(f64, u64, u64)> {
     let start = Instant::now();
     let mut reader = LogReader::new(log)?;
-    let mut estimator = Estimator::new(EstimatorConfig::default())?;
+    let config = resolve_config(reader.header(), None, &EstimatorFlags::default())?.config;
+    let mut estimator = Estimator::new(config)?;
     let mut outputs: Vec<Output> = Vec::new();
     let (mut n_obs, mut n_solutions) = (0u64, 0u64);
     while let Some(record) = reader.next_record()? {
@@ -312,46 +290,119 @@ fn median(xs: &mut [f64]) -> f64 {
     xs[xs.len() / 2]
 }
 
-fn replay_figures(runs: usize) -> anyhow::Result<Value> {
+/// Runs `wahbad ARGS` to completion; its stdout is discarded. Returns wall seconds.
+fn run_wahbad(exe: &Path, args: &[&OsStr]) -> anyhow::Result<f64> {
+    let start = Instant::now();
+    let out = Command::new(exe)
+        .args(args)
+        .stdin(Stdio::null())
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .output()
+        .with_context(|| format!("cannot run {}", exe.display()))?;
+    let wall = start.elapsed().as_secs_f64();
+    if !out.status.success() {
+        bail!(
+            "`wahbad {}` failed ({}): {}",
+            args.iter()
+                .map(|a| a.to_string_lossy())
+                .collect::<Vec<_>>()
+                .join(" "),
+            out.status,
+            String::from_utf8_lossy(&out.stderr).trim()
+        );
+    }
+    Ok(wall)
+}
+
+/// A scratch directory removed on drop.
+struct ScratchDir(PathBuf);
+
+impl Drop for ScratchDir {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_dir_all(&self.0);
+    }
+}
+
+fn replay_figures(runs: usize, duration_s: f64) -> anyhow::Result<Value> {
+    let exe = std::env::current_exe().context("cannot find the wahbad binary")?;
+    let dir = ScratchDir(std::env::temp_dir().join(format!("wahbad-bench-{}", std::process::id())));
+    std::fs::create_dir_all(&dir.0)
+        .with_context(|| format!("cannot create {}", dir.0.display()))?;
     let mut out = serde_json::Map::new();
-    let mut dense = Scenario::default();
-    dense.star_cam.stars_per_frame = 40;
-    for (name, scenario) in [("default", Scenario::default()), ("dense_40_stars", dense)] {
-        let (log, duration_s, n_messages) = recording(&scenario)?;
-        let (mut replay_s, mut decode_s, mut ratios) = (Vec::new(), Vec::new(), Vec::new());
+    let duration = duration_s.to_string();
+    for (name, extra) in [("default", None), ("dense_40_stars", Some("40"))] {
+        let log_path = dir.0.join(format!("{name}.wlog"));
+        let summary_path = dir.0.join(format!("{name}.summary.json"));
+        let mut simulate: Vec<&OsStr> = vec![
+            "simulate".as_ref(),
+            "--duration".as_ref(),
+            duration.as_ref(),
+            "--out".as_ref(),
+            log_path.as_os_str(),
+        ];
+        if let Some(stars) = extra {
+            simulate.extend([OsStr::new("--stars-per-frame"), OsStr::new(stars)]);
+        }
+        eprintln!("wahbad bench: simulating {name} ({duration_s} s of data)");
+        run_wahbad(&exe, &simulate)?;
+        let log = std::fs::read(&log_path)
+            .with_context(|| format!("cannot read {}", log_path.display()))?;
+        let replay_args: [&OsStr; 4] = [
+            "replay".as_ref(),
+            log_path.as_os_str(),
+            "--summary".as_ref(),
+            summary_path.as_os_str(),
+        ];
+        let (mut binary_s, mut in_process_s, mut decode_s) = (Vec::new(), Vec::new(), Vec::new());
         let (mut n_obs, mut n_solutions) = (0, 0);
-        for _ in 0..runs {
+        for run in 0..runs {
+            eprintln!("wahbad bench: replay {name}, run {} of {runs}", run + 1);
             let (d, _, _) = pass(&log, false)?;
             let (r, obs, sols) = pass(&log, true)?;
+            let b = run_wahbad(&exe, &replay_args)?;
             (n_obs, n_solutions) = (obs, sols);
             decode_s.push(d);
-            replay_s.push(r);
-            ratios.push(r / d);
+            in_process_s.push(r);
+            binary_s.push(b);
         }
-        let (r, d) = (median(&mut replay_s), median(&mut decode_s));
+        let summary: Value = serde_json::from_slice(&std::fs::read(&summary_path)?)
+            .context("the replay summary is not JSON")?;
+        let (b, r, d) = (
+            median(&mut binary_s),
+            median(&mut in_process_s),
+            median(&mut decode_s),
+        );
         out.insert(
             name.into(),
             json!({
                 "data_s": duration_s,
-                "messages": n_messages,
                 "observations": n_obs,
-                "solutions": n_solutions,
+                "solutions_in_process": n_solutions,
+                "replay_summary_epochs": summary.get("epochs"),
                 "log_bytes": log.len(),
-                "replay_s_median": r,
+                "replay_binary_s_median": b,
+                "replay_binary_s_per_run": binary_s,
+                "real_time_factor": duration_s / b,
+                "replay_obs_per_s": n_obs as f64 / b,
+                "replay_in_process_s_median": r,
+                "real_time_factor_in_process": duration_s / r,
+                "replay_in_process_obs_per_s": n_obs as f64 / r,
                 "decode_only_s_median": d,
-                "real_time_factor": duration_s / r,
-                "replay_obs_per_s": n_obs as f64 / r,
                 "decode_only_obs_per_s": n_obs as f64 / d,
-                "replay_over_decode_per_run": ratios,
-                "replay_over_decode_median": median(&mut ratios.clone()),
+                "replay_binary_over_decode_only": b / d,
+                "replay_in_process_over_decode_only": r / d,
             }),
         );
     }
     out.insert(
         "note".into(),
         json!(
-            "in-process: simulator library + record writer into memory, read back with the \
-               record reader; `wahbad replay` / `simulate --out` are not on this branch"
+            "logs written by `wahbad simulate --duration D --out` (default all_faults scenario; \
+               dense: --stars-per-frame 40); replay_binary: wall time of `wahbad replay LOG \
+               --summary FILE` as a child process (start-up, file read and summary included); \
+               in_process and decode_only: the same log read from memory in this process, \
+               with and without the estimator (configured from the log header)"
         ),
     );
     Ok(Value::Object(out))

@@ -98,6 +98,11 @@ impl Pacer {
         Pacer { speed, start: None }
     }
 
+    /// Whether inputs are paced at all (a speed was given).
+    pub fn is_paced(&self) -> bool {
+        self.speed.is_some()
+    }
+
     /// How long to wait before handing over an input of data time `t`.
     pub fn delay(&mut self, t: i64, now: Instant) -> Duration {
         let Some(speed) = self.speed else {
@@ -171,6 +176,7 @@ pub fn run(
     let mut estimator =
         Estimator::new(config).map_err(|err| ReplayError::Config(err.to_string()))?;
     let mut pacer = Pacer::new(options.speed);
+    let mut reported_bytes = u64::MAX;
     let mut run = ReplayRun::default();
     let mut outputs = Vec::new();
     let mut n_decode_rejects = 0u64;
@@ -197,9 +203,11 @@ pub fn run(
                 continue;
             }
         };
-        let wait = pacer.delay(data_time(&input), Instant::now());
-        if !wait.is_zero() {
-            std::thread::sleep(wait);
+        if pacer.is_paced() {
+            let wait = pacer.delay(data_time(&input), Instant::now());
+            if !wait.is_zero() {
+                std::thread::sleep(wait);
+            }
         }
         match &input {
             Input::Obs(_) => run.counts.observations += 1,
@@ -222,7 +230,13 @@ pub fn run(
                 Output::Alert(alert) => run.alerts.push(alert),
             }
         }
-        progress(log.bytes.load(Relaxed));
+        // The count moves once per read chunk: report only then (a progress
+        // update reads the clock, which per record was a visible cost).
+        let bytes = log.bytes.load(Relaxed);
+        if bytes != reported_bytes {
+            reported_bytes = bytes;
+            progress(bytes);
+        }
     }
     let stats = estimator.stats();
     run.counts.rejected = stats.rejected + n_decode_rejects;
