@@ -90,7 +90,7 @@ pub use config::{
 use crate::solve::{Pair, SolveError, Solver};
 use crate::verdict::{assess_into, Observability, Verdict, UNOBSERVABLE_VARIANCE};
 use config::Checked;
-use propagate::{Propagator, RateBuffer, RateSample};
+use propagate::{RateBuffer, RateSample};
 use window::{epoch_at_or_after, first_open_epoch, BufferedObs, ObsBuffer};
 
 /// One input of the estimator.
@@ -238,7 +238,6 @@ pub struct Estimator {
     sensor_order: Vec<u16>,
     obs: ObsBuffer,
     rates: RateBuffer,
-    propagator: Propagator,
     /// Newest data time seen.
     newest_t: Option<i64>,
     /// First data time seen (silence of never-heard sensors counts from here).
@@ -290,7 +289,6 @@ impl Estimator {
             sensor_order: Vec::with_capacity(config.max_sensors),
             obs: ObsBuffer::with_capacity(config.max_window_obs),
             rates: RateBuffer::with_capacity(config.max_rate_samples),
-            propagator: Propagator::default(),
             newest_t: None,
             start_t: None,
             next_epoch: None,
@@ -483,6 +481,8 @@ impl Estimator {
                 b: unit(obs.b),
                 r: unit(obs.r),
                 sigma,
+                anchored_b: Vector3::zeros(),
+                anchored_gen: 0,
             };
             if self.obs.insert(buffered, self.config.max_window_obs) {
                 self.stats.dropped_overflow += 1;
@@ -603,42 +603,43 @@ impl Estimator {
         let consecutive = self
             .estimate
             .filter(|e| e.t == epoch.saturating_sub(period_ns));
-        let oldest = self.obs.get(range.start).t;
-        if propagated {
-            let from = consecutive.map_or(oldest, |e| e.t.min(oldest));
-            self.propagator.build(&self.rates, from, epoch);
-        }
         let carried = self.estimate.map(|e| match consecutive {
-            Some(_) if propagated => self.propagator.to_epoch(e.t) * e.q,
+            Some(_) if propagated => self.rates.carry(e.t, epoch) * e.q,
             _ => e.q,
         });
 
-        // Pairs at the epoch, per-sensor presence.
+        // Pairs at the epoch, per-sensor presence. Each observation's `b` at
+        // the rates' anchor time is kept between epochs while it is settled,
+        // so an epoch costs one rotation `K(E)` and a matrix product per pair.
         self.pairs.clear();
         self.counts.clear();
         self.counts.resize(self.sensors.len(), (0, 0));
         let arw2 = self.config.gyro_arw * self.config.gyro_arw;
-        // Window order is time order: one forward walk over the knots, and one
-        // propagation per distinct time (the stars of a frame share theirs).
-        let mut cursor = self.propagator.cursor();
-        let mut carry: Option<(i64, UnitQuaternion<f64>)> = None;
+        let to_epoch = propagated.then(|| self.rates.anchored(epoch).to_rotation_matrix());
+        let (generation, settled_before) = (self.rates.generation(), self.rates.settled_before());
         for obs_idx in range.clone() {
-            let obs = self.obs.get(obs_idx);
-            let (b, sigma) = if propagated {
-                let dt_s = (epoch - obs.t) as f64 / NS_PER_S;
-                let c = match carry {
-                    Some((t, c)) if t == obs.t => c,
-                    _ => {
-                        let c = self.propagator.to_epoch_walk(obs.t, &mut cursor);
-                        carry = Some((obs.t, c));
-                        c
+            let obs = self.obs.get_mut(obs_idx);
+            let (b, sigma) = match &to_epoch {
+                Some(k_epoch) => {
+                    if obs.anchored_gen != generation {
+                        obs.anchored_b =
+                            self.rates.anchored(obs.t).inverse_transform_vector(&obs.b);
+                        // Kept for later epochs only where `K` is settled.
+                        obs.anchored_gen = if obs.t < settled_before {
+                            generation
+                        } else {
+                            0
+                        };
                     }
-                };
-                let b = c * obs.b;
-                (b, (obs.sigma * obs.sigma + arw2 * dt_s).sqrt())
-            } else {
-                (obs.b, obs.sigma)
+                    let dt_s = (epoch - obs.t) as f64 / NS_PER_S;
+                    (
+                        k_epoch * obs.anchored_b,
+                        (obs.sigma * obs.sigma + arw2 * dt_s).sqrt(),
+                    )
+                }
+                None => (obs.b, obs.sigma),
             };
+            let obs = self.obs.get(obs_idx);
             self.pairs.push(Pair { b, r: obs.r, sigma });
             self.counts[obs.sensor_idx as usize].0 += 1;
         }

@@ -13,6 +13,16 @@
 //! midpoint hold is exact for a rate ramping linearly about a fixed axis.
 //! Before the first retained sample the first one is held backwards, after the
 //! last one the last is held forwards.
+//!
+//! The buffer keeps, with each sample, the rotation `K` from a fixed anchor
+//! time to the start of that sample's hold, built once when the sample
+//! arrives (`K_j = exp(-[ω_{j-1}×] Δ) K_{j-1}`). Then `C(t→E) = K(E) K(t)⁻¹`
+//! for any two times, so an epoch costs one `K(E)` and each observation one
+//! `K(t)`, which stays valid while the samples around `t` do: the buffer says
+//! up to which time `K` is settled, and bumps a generation number whenever a
+//! change reaches back into settled time (a sample out of order, the capacity
+//! dropping one). The rounding of `C` is that of the products between `t` and
+//! `E`, whatever the anchor's age; `K` is renormalised at every step.
 
 use std::collections::VecDeque;
 
@@ -27,10 +37,29 @@ pub struct RateSample {
     pub w: Vector3<f64>,
 }
 
-/// Time-ordered rate samples of the open windows.
-#[derive(Debug, Clone, Default)]
+/// One held sample: the sample, the start of its hold and `K` there.
+#[derive(Debug, Clone, Copy)]
+struct Held {
+    sample: RateSample,
+    /// Start of the hold: the midpoint with the previous sample, or the
+    /// sample's own time when it had none.
+    from: i64,
+    /// `K(from)`: rotation from the anchor time to `from`.
+    k_from: UnitQuaternion<f64>,
+}
+
+/// Time-ordered rate samples of the open windows, with their anchored rotations.
+#[derive(Debug, Clone)]
 pub struct RateBuffer {
-    samples: VecDeque<RateSample>,
+    samples: VecDeque<Held>,
+    /// Bumped when `K` changes at a time that was settled.
+    generation: u64,
+}
+
+impl Default for RateBuffer {
+    fn default() -> Self {
+        RateBuffer::with_capacity(0)
+    }
 }
 
 impl RateBuffer {
@@ -38,6 +67,7 @@ impl RateBuffer {
     pub fn with_capacity(capacity: usize) -> Self {
         RateBuffer {
             samples: VecDeque::with_capacity(capacity),
+            generation: 1,
         }
     }
 
@@ -59,7 +89,7 @@ impl RateBuffer {
             && self
                 .samples
                 .front()
-                .is_some_and(|front| front.t <= cutoff && front.t >= t)
+                .is_some_and(|front| front.sample.t <= cutoff && front.sample.t >= t)
     }
 
     /// Inserts in time order (after samples of equal time); drops the oldest when
@@ -67,41 +97,82 @@ impl RateBuffer {
     pub fn insert(&mut self, sample: RateSample, capacity: usize) -> bool {
         let overflow = self.samples.len() >= capacity;
         if overflow {
+            // The dropped sample's hold may be in use by buffered observations.
             self.samples.pop_front();
+            self.generation += 1;
         }
-        let at = self.samples.partition_point(|s| s.t <= sample.t);
-        self.samples.insert(at, sample);
+        let at = self.samples.partition_point(|h| h.sample.t <= sample.t);
+        self.samples.insert(
+            at,
+            Held {
+                sample,
+                from: sample.t,
+                k_from: UnitQuaternion::identity(),
+            },
+        );
+        if at + 1 < self.samples.len() {
+            // Out of order (or a new first sample, the new anchor): later
+            // holds move, and settled time with them.
+            self.generation += 1;
+        }
+        for j in at.max(1)..self.samples.len() {
+            self.link(j);
+        }
         overflow
     }
 
+    /// Sets the hold start and `K` of sample `j >= 1` from sample `j - 1`.
+    fn link(&mut self, j: usize) {
+        let prev = self.samples[j - 1];
+        let t = self.samples[j].sample.t;
+        let from = ((prev.sample.t as i128 + t as i128) / 2) as i64;
+        let k = segment(&prev.sample.w, from - prev.from) * prev.k_from;
+        let held = &mut self.samples[j];
+        held.from = from;
+        held.k_from = UnitQuaternion::new_normalize(k.into_inner());
+    }
+
     /// Forgets samples no window starting after `cutoff` needs, keeping the
-    /// latest one at or before `cutoff` (it holds the rate at the window start).
+    /// latest one at or before `cutoff` (it holds the rate at the window
+    /// start). `K` after `cutoff` is unchanged.
     pub fn prune(&mut self, cutoff: i64) {
-        while self.samples.len() >= 2 && self.samples[1].t <= cutoff {
+        while self.samples.len() >= 2 && self.samples[1].sample.t <= cutoff {
             self.samples.pop_front();
         }
     }
 
     /// Whether any sample lies in `(from, to]`.
     pub fn any_in(&self, from: i64, to: i64) -> bool {
-        let start = self.samples.partition_point(|s| s.t <= from);
-        self.samples.get(start).is_some_and(|s| s.t <= to)
+        let start = self.samples.partition_point(|h| h.sample.t <= from);
+        self.samples.get(start).is_some_and(|h| h.sample.t <= to)
     }
-}
 
-/// One knot: `c = C(t→E)`, and the rate in effect just before `t`.
-#[derive(Debug, Clone, Copy)]
-struct Knot {
-    t: i64,
-    c: UnitQuaternion<f64>,
-    w_before: Vector3<f64>,
-}
+    /// `K(t)`: the rotation from the anchor time to `t`. The buffer must not be empty.
+    pub fn anchored(&self, t: i64) -> UnitQuaternion<f64> {
+        assert!(!self.samples.is_empty(), "rate propagation without samples");
+        let j = self
+            .samples
+            .partition_point(|h| h.from <= t)
+            .saturating_sub(1);
+        let held = &self.samples[j];
+        segment(&held.sample.w, t - held.from) * held.k_from
+    }
 
-/// Precomputed `C(t→E)` at every rate-sample time between `from` and the epoch `E`.
-#[derive(Debug, Clone, Default)]
-pub struct Propagator {
-    /// Knots in descending time, the first at `E`.
-    knots: Vec<Knot>,
+    /// `C(t→E)`: the rotation carrying a body vector seen at `t` to `epoch`.
+    pub fn carry(&self, t: i64, epoch: i64) -> UnitQuaternion<f64> {
+        self.anchored(epoch) * self.anchored(t).inverse()
+    }
+
+    /// Times before this have a settled `K`: a sample appended in time order
+    /// does not change it (it moves only the last hold's end).
+    pub fn settled_before(&self) -> i64 {
+        self.samples.back().map_or(i64::MIN, |h| h.from)
+    }
+
+    /// Changes whenever `K` changed at a settled time (see the module doc).
+    pub fn generation(&self) -> u64 {
+        self.generation
+    }
 }
 
 /// Rotation angle up to which [`segment`] uses its series (rad).
@@ -134,78 +205,6 @@ fn segment(w: &Vector3<f64>, dt_ns: i64) -> UnitQuaternion<f64> {
     ))
 }
 
-impl Propagator {
-    /// Prepares propagation of any time in `[from, epoch]` to `epoch` using
-    /// `rates`, which must not be empty. Reuses its buffer.
-    pub fn build(&mut self, rates: &RateBuffer, from: i64, epoch: i64) {
-        self.knots.clear();
-        let samples = &rates.samples;
-        assert!(!samples.is_empty(), "propagator built without rate samples");
-        // Sample `j >= 1` takes over from sample `j - 1` at their midpoint.
-        let switch = |j: usize| ((samples[j - 1].t as i128 + samples[j].t as i128) / 2) as i64;
-        // The sample in effect at the epoch: the last one whose hold has begun.
-        let hi = samples.partition_point(|s| s.t <= epoch);
-        let mut j = if hi < samples.len() && hi > 0 && switch(hi) <= epoch {
-            hi
-        } else {
-            hi.saturating_sub(1)
-        };
-        self.knots.push(Knot {
-            t: epoch,
-            c: UnitQuaternion::identity(),
-            w_before: samples[j].w,
-        });
-        while j >= 1 {
-            let t_switch = switch(j);
-            if t_switch <= from {
-                break;
-            }
-            let last = self.knots[self.knots.len() - 1];
-            let c = last.c * segment(&last.w_before, last.t - t_switch);
-            self.knots.push(Knot {
-                t: t_switch,
-                c,
-                w_before: samples[j - 1].w,
-            });
-            j -= 1;
-        }
-    }
-
-    /// `C(t→E)`: the rotation carrying a body vector seen at `t` (within the
-    /// built range) to the epoch.
-    pub fn to_epoch(&self, t: i64) -> UnitQuaternion<f64> {
-        let k = self.knots.partition_point(|k| k.t >= t).saturating_sub(1);
-        self.carried_by_knot(k, t)
-    }
-
-    /// A cursor for [`Propagator::to_epoch_walk`], before the oldest knot.
-    pub fn cursor(&self) -> KnotCursor {
-        KnotCursor(self.knots.len())
-    }
-
-    /// [`Propagator::to_epoch`] for times visited in non-decreasing order: the
-    /// cursor walks the knots forward instead of a binary search per call
-    /// (same knot, same result bit for bit).
-    pub fn to_epoch_walk(&self, t: i64, cursor: &mut KnotCursor) -> UnitQuaternion<f64> {
-        // `cursor.0` is the number of knots with `k.t >= t` (knots descend in time).
-        let mut m = cursor.0.min(self.knots.len());
-        while m > 0 && self.knots[m - 1].t < t {
-            m -= 1;
-        }
-        cursor.0 = m;
-        self.carried_by_knot(m.saturating_sub(1), t)
-    }
-
-    fn carried_by_knot(&self, k: usize, t: i64) -> UnitQuaternion<f64> {
-        let knot = &self.knots[k];
-        knot.c * segment(&knot.w_before, knot.t - t)
-    }
-}
-
-/// Position of a forward walk over a [`Propagator`]'s knots.
-#[derive(Debug, Clone, Copy)]
-pub struct KnotCursor(usize);
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -233,31 +232,26 @@ mod tests {
             },
             10,
         );
-        let mut prop = Propagator::default();
-        prop.build(&rates, 100 * MS, 1000 * MS);
-        let c = prop.to_epoch(100 * MS);
+        let c = rates.carry(100 * MS, 1000 * MS);
         let expected = UnitQuaternion::from_scaled_axis(Vector3::new(-0.3, 0.0, 0.0))
             * UnitQuaternion::from_scaled_axis(Vector3::new(0.0, 0.0, -0.03));
         assert!(c.angle_to(&expected) < 1e-14, "{}", c.angle_to(&expected));
         // At the epoch itself nothing moves.
-        assert!(prop.to_epoch(1000 * MS).angle() < 1e-15);
+        assert!(rates.carry(1000 * MS, 1000 * MS).angle() < 1e-15);
         // Before the first sample, the first one is held backwards: from
         // -500 ms, 750 ms about z (-0.15 rad) then 750 ms about x.
-        prop.build(&rates, -500 * MS, 1000 * MS);
-        let c = prop.to_epoch(-500 * MS);
+        let c = rates.carry(-500 * MS, 1000 * MS);
         let expected = UnitQuaternion::from_scaled_axis(Vector3::new(-0.3, 0.0, 0.0))
             * UnitQuaternion::from_scaled_axis(Vector3::new(0.0, 0.0, -0.15));
         assert!(c.angle_to(&expected) < 1e-14);
         // An epoch between the sample and the switch still uses the earlier
         // sample: from 0 to E = 200 ms, 0.2 rad/s about z only.
-        prop.build(&rates, 0, 200 * MS);
-        let c = prop.to_epoch(0);
+        let c = rates.carry(0, 200 * MS);
         let expected = UnitQuaternion::from_scaled_axis(Vector3::new(0.0, 0.0, -0.04));
         assert!(c.angle_to(&expected) < 1e-14);
         // An epoch past the switch but before the later sample uses the later
         // one from the switch on: 0..250 ms about z, 250..400 ms about x.
-        prop.build(&rates, 0, 400 * MS);
-        let c = prop.to_epoch(0);
+        let c = rates.carry(0, 400 * MS);
         let expected = UnitQuaternion::from_scaled_axis(Vector3::new(-0.06, 0.0, 0.0))
             * UnitQuaternion::from_scaled_axis(Vector3::new(0.0, 0.0, -0.05));
         assert!(c.angle_to(&expected) < 1e-14);
@@ -290,22 +284,95 @@ mod tests {
         );
     }
 
+    /// Samples 10 ms apart with rates that change every sample.
+    fn varied(i: i64) -> RateSample {
+        let w = Vector3::new(0.1 * i as f64, -0.05, 0.02 * (i % 3) as f64);
+        RateSample { t: i * 10 * MS, w }
+    }
+
+    /// `C(t→E)` straight from the definition: the product of the exact
+    /// segments of the nearest-sample hold, built from scratch.
+    fn carry_from_scratch(samples: &[RateSample], t: i64, epoch: i64) -> UnitQuaternion<f64> {
+        // The rate in effect at time x: the sample nearest in time (ties: later).
+        let switch = |j: usize| (samples[j - 1].t + samples[j].t) / 2;
+        let mut bounds: Vec<i64> = (1..samples.len())
+            .map(switch)
+            .filter(|&b| b > t && b < epoch)
+            .collect();
+        bounds.insert(0, t);
+        bounds.push(epoch);
+        let mut c = UnitQuaternion::identity();
+        for pair in bounds.windows(2) {
+            let mid = pair[0] + (pair[1] - pair[0]) / 2;
+            let j = (1..samples.len()).filter(|&j| switch(j) <= mid).count();
+            c = UnitQuaternion::from_scaled_axis(
+                -samples[j].w * ((pair[1] - pair[0]) as f64 * 1e-9),
+            ) * c;
+        }
+        c
+    }
+
     #[test]
-    fn forward_walk_matches_the_binary_search_bit_for_bit() {
+    fn anchored_carry_matches_the_product_of_segments() {
+        let samples: Vec<RateSample> = (0..20).map(varied).collect();
         let mut rates = RateBuffer::default();
-        for i in 0..20 {
-            let w = Vector3::new(0.1 * i as f64, -0.05, 0.02 * (i % 3) as f64);
-            rates.insert(RateSample { t: i * 10 * MS, w }, 100);
+        for s in &samples {
+            rates.insert(*s, 100);
         }
-        let mut prop = Propagator::default();
-        prop.build(&rates, 15 * MS, 180 * MS);
-        let mut cursor = prop.cursor();
-        // Ascending times, with repeats, on and between knots.
-        for t in [15, 15, 20, 23, 30, 30, 31, 99, 100, 150, 179, 180].map(|ms| ms * MS) {
-            let walked = prop.to_epoch_walk(t, &mut cursor);
-            let searched = prop.to_epoch(t);
-            assert_eq!(walked.coords, searched.coords, "t = {t}");
+        for (t, e) in [
+            (15, 180),
+            (23, 100),
+            (0, 190),
+            (99, 101),
+            (-40, 20),
+            (150, 250),
+        ] {
+            let (t, e) = (t * MS, e * MS);
+            let got = rates.carry(t, e);
+            let want = carry_from_scratch(&samples, t, e);
+            assert!(
+                got.angle_to(&want) < 1e-14,
+                "t {t} E {e}: {:e}",
+                got.angle_to(&want)
+            );
         }
+    }
+
+    #[test]
+    fn appends_keep_settled_time_and_out_of_order_bumps_the_generation() {
+        let mut rates = RateBuffer::default();
+        for i in 0..10 {
+            rates.insert(varied(i), 100);
+        }
+        let (gen, settled) = (rates.generation(), rates.settled_before());
+        let before: Vec<_> = [12, 40, settled / MS - 1]
+            .map(|ms| rates.anchored(ms * MS))
+            .to_vec();
+        rates.insert(varied(10), 100);
+        assert_eq!(rates.generation(), gen, "an append changes nothing settled");
+        let after: Vec<_> = [12, 40, settled / MS - 1]
+            .map(|ms| rates.anchored(ms * MS))
+            .to_vec();
+        for (b, a) in before.iter().zip(&after) {
+            assert_eq!(b.coords, a.coords);
+        }
+        // A late sample in the middle: the generation moves, and carries
+        // agree with a buffer that got the samples in order.
+        let late = RateSample {
+            t: 45 * MS,
+            w: Vector3::new(0.0, 0.3, 0.0),
+        };
+        rates.insert(late, 100);
+        assert_ne!(rates.generation(), gen);
+        let mut in_order: Vec<RateSample> = (0..11).map(varied).collect();
+        in_order.insert(5, late);
+        let c = rates.carry(20 * MS, 100 * MS);
+        let want = carry_from_scratch(&in_order, 20 * MS, 100 * MS);
+        assert!(c.angle_to(&want) < 1e-14);
+        // Dropping the oldest at capacity also moves it.
+        let gen = rates.generation();
+        assert!(rates.insert(varied(11), rates.len()));
+        assert_ne!(rates.generation(), gen);
     }
 
     #[test]

@@ -24,6 +24,11 @@ pub struct BufferedObs {
     pub r: Vector3<f64>,
     /// 1-σ angular noise, rad (message value or the sensor's default).
     pub sigma: f64,
+    /// `b` carried to the rate buffer's anchor time, `K(t)⁻¹ b`, valid while
+    /// the buffer's generation is `anchored_gen` (0: not computed).
+    pub anchored_b: Vector3<f64>,
+    /// See `anchored_b`.
+    pub anchored_gen: u64,
 }
 
 /// Time-ordered observations of the open windows.
@@ -53,6 +58,11 @@ impl ObsBuffer {
     /// The observation at `idx` in time order.
     pub fn get(&self, idx: usize) -> &BufferedObs {
         &self.obs[idx]
+    }
+
+    /// The observation at `idx`, to update its cached propagation.
+    pub fn get_mut(&mut self, idx: usize) -> &mut BufferedObs {
+        &mut self.obs[idx]
     }
 
     /// Time of the oldest observation held.
@@ -115,6 +125,8 @@ mod tests {
             b: Vector3::x(),
             r: Vector3::x(),
             sigma: 1e-3,
+            anchored_b: Vector3::zeros(),
+            anchored_gen: 0,
         }
     }
 
