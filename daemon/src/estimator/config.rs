@@ -37,7 +37,12 @@ pub struct EstimatorConfig {
     /// seen is `>= E + L`. Default 50.
     pub latency_ms: u64,
     /// Most observations buffered for the open windows (so also the most in one
-    /// window); beyond it the oldest is dropped and counted. Default 2000, must be >= 2.
+    /// window); beyond it the oldest is dropped and counted. Default 10000, must be >= 2.
+    /// The buffer must hold `rate × (span + latency)` observations: the
+    /// default fits a busy bench (2,000 obs/s: 2,100) with room up to about
+    /// 9,500 obs/s at the default span; a smaller cap than that empties the
+    /// windows, because the newest observations are kept (raise it, or
+    /// shorten the span, for stress rates).
     pub max_window_obs: usize,
     /// Most rate samples buffered; beyond it the oldest is dropped and counted. Default 4000.
     pub max_rate_samples: usize,
@@ -71,7 +76,7 @@ impl Default for EstimatorConfig {
             period_ms: 100,
             span_ms: 1000,
             latency_ms: 50,
-            max_window_obs: 2000,
+            max_window_obs: 10_000,
             max_rate_samples: 4000,
             method: Method::Auto,
             chi2_level: 0.999,
