@@ -23,7 +23,7 @@
 
 use nalgebra::Matrix3;
 
-use super::rotation::{nearest_rotation, ProfileSum};
+use super::rotation::{nearest_rotation_seeded, ProfileSum};
 use super::{svd, Estimate, Method, SolveError, SolveParams, Workspace};
 
 /// Fills `ws.soa` from `ws.pairs`.
@@ -44,6 +44,25 @@ fn load_soa(ws: &mut Workspace) {
 /// product row by row, `(a₀x + a₁y) + a₂z`; the squared norm summed x, y, z),
 /// so the values are bit for bit those of `chord2(a, p) * inv_g`, but packed.
 fn residuals(soa: &[Vec<f64>; 6], inv_g: &[f64], a: &Matrix3<f64>, rho: &mut Vec<f64>) {
+    rho.clear();
+    rho.resize(inv_g.len(), 0.0);
+    #[cfg(target_arch = "x86_64")]
+    if std::arch::is_x86_feature_detected!("avx2") {
+        // SAFETY: the CPU supports AVX2 (checked just above).
+        return unsafe { residuals_avx2(soa, inv_g, a, rho) };
+    }
+    residuals_body(soa, inv_g, a, rho);
+}
+
+/// [`residuals_body`] compiled for AVX2 (no FMA: each operation rounds as in the SSE2 build).
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+fn residuals_avx2(soa: &[Vec<f64>; 6], inv_g: &[f64], a: &Matrix3<f64>, rho: &mut [f64]) {
+    residuals_body(soa, inv_g, a, rho);
+}
+
+#[inline(always)]
+fn residuals_body(soa: &[Vec<f64>; 6], inv_g: &[f64], a: &Matrix3<f64>, rho: &mut [f64]) {
     let n = inv_g.len();
     let [bx, by, bz, rx, ry, rz] = soa;
     let (bx, by, bz, rx, ry, rz) = (&bx[..n], &by[..n], &bz[..n], &rx[..n], &ry[..n], &rz[..n]);
@@ -51,8 +70,6 @@ fn residuals(soa: &[Vec<f64>; 6], inv_g: &[f64], a: &Matrix3<f64>, rho: &mut Vec
     let (a00, a01, a02) = (m(0, 0), m(0, 1), m(0, 2));
     let (a10, a11, a12) = (m(1, 0), m(1, 1), m(1, 2));
     let (a20, a21, a22) = (m(2, 0), m(2, 1), m(2, 2));
-    rho.clear();
-    rho.resize(n, 0.0);
     let rho = &mut rho[..n];
     for i in 0..n {
         let (x, y, z) = (rx[i], ry[i], rz[i]);
@@ -71,26 +88,10 @@ fn residuals(soa: &[Vec<f64>; 6], inv_g: &[f64], a: &Matrix3<f64>, rho: &mut Vec
 /// into `work_w` (packed division and square root, no branches); the sums in
 /// pair order.
 fn pass(ws: &mut Workspace, a: &Matrix3<f64>, mu: f64) -> (f64, Matrix3<f64>, usize) {
-    let (lower, upper, mm) = (mu / (mu + 1.0), (mu + 1.0) / mu, mu * (mu + 1.0));
     let n = ws.pairs.len();
     residuals(&ws.soa, &ws.resid[..n], a, &mut ws.rho);
-    // The closed-form TLS weights (module doc): 1, fractional in the band, 0.
     ws.work_w.resize(n, 0.0);
-    let (rho, work_w) = (&ws.rho[..n], &mut ws.work_w[..n]);
-    let mut n_band = 0u64;
-    for i in 0..n {
-        let rho = rho[i];
-        let fractional = ((mm / rho).sqrt() - mu).clamp(0.0, 1.0);
-        let (at_one, at_zero) = (rho <= lower, rho >= upper);
-        work_w[i] = if at_one {
-            1.0
-        } else if at_zero {
-            0.0
-        } else {
-            fractional
-        };
-        n_band += u64::from(!at_one & !at_zero);
-    }
+    let n_band = tls_weights(&ws.rho[..n], &mut ws.work_w[..n], mu);
     let mut cost = 0.0;
     let mut sum = ProfileSum::default();
     for (((p, &rho), &u), &iv) in ws
@@ -106,6 +107,50 @@ fn pass(ws: &mut Workspace, a: &Matrix3<f64>, mu: f64) -> (f64, Matrix3<f64>, us
         }
     }
     (cost, sum.matrix(), n_band as usize)
+}
+
+/// The closed-form TLS weights at `mu` (module doc) of `rho` into `w`: 1,
+/// fractional in the band, 0; returns how many are in the band.
+///
+/// Division and square root are IEEE-exact in every instruction set, so the
+/// 4-lane AVX2 build gives the same bits as the 2-lane SSE2 one, at twice the
+/// divider throughput on CPUs with a 256-bit divider.
+fn tls_weights(rho: &[f64], w: &mut [f64], mu: f64) -> u64 {
+    #[cfg(target_arch = "x86_64")]
+    if std::arch::is_x86_feature_detected!("avx2") {
+        // SAFETY: the CPU supports AVX2 (checked just above).
+        return unsafe { tls_weights_avx2(rho, w, mu) };
+    }
+    tls_weights_body(rho, w, mu)
+}
+
+/// [`tls_weights_body`] compiled for AVX2 (no FMA: each operation rounds as in the SSE2 build).
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+fn tls_weights_avx2(rho: &[f64], w: &mut [f64], mu: f64) -> u64 {
+    tls_weights_body(rho, w, mu)
+}
+
+#[inline(always)]
+fn tls_weights_body(rho: &[f64], w: &mut [f64], mu: f64) -> u64 {
+    let (lower, upper, mm) = (mu / (mu + 1.0), (mu + 1.0) / mu, mu * (mu + 1.0));
+    let n = rho.len();
+    let w = &mut w[..n];
+    let mut n_band = 0u64;
+    for i in 0..n {
+        let rho = rho[i];
+        let fractional = ((mm / rho).sqrt() - mu).clamp(0.0, 1.0);
+        let (at_one, at_zero) = (rho <= lower, rho >= upper);
+        w[i] = if at_one {
+            1.0
+        } else if at_zero {
+            0.0
+        } else {
+            fractional
+        };
+        n_band += u64::from(!at_one & !at_zero);
+    }
+    n_band
 }
 
 /// GNC-TLS from `warm` (or least squares).
@@ -138,10 +183,13 @@ pub(crate) fn solve(
     let (mut cost, mut profile, mut n_band) = pass(ws, &a, mu);
     let mut iterations = 0;
     let mut converged = false;
+    let mut seed = None;
     while iterations < params.max_iterations {
-        let Ok(a_new) = nearest_rotation(&profile) else {
+        // Each step's profile is close to the last one's: seed its SVD with the last `V`.
+        let Ok((a_new, v)) = nearest_rotation_seeded(&profile, seed.as_ref()) else {
             break;
         };
+        seed = Some(v);
         iterations += 1;
         a = a_new;
         if n_band == 0 {
