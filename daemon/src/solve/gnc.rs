@@ -11,7 +11,10 @@
 //! largest residual of the initial estimate (warm start, else least squares)
 //! and grows by `gnc_mu_factor` each step; each step is one weighted
 //! least-squares solve with weights `w_i σ_i⁻²` (one pass over the pairs
-//! computes the residuals, the next weights and their profile matrix).
+//! computes the residuals, the next weights and their profile matrix). The
+//! 3×3 SVD of each step starts its Jacobi rotations from the previous step's
+//! right singular vectors (same stopping rule and checks; a failed check
+//! redoes it from the identity).
 //!
 //! Convergence rule (`converged`): the weights are binary (no residual in the
 //! band where `0 < w < 1`), or, once `μ ≥ 1`, the TLS cost `Σ min(ρ_i, 1)`

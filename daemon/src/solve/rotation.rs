@@ -371,6 +371,38 @@ mod tests {
     }
 
     #[test]
+    fn seeded_svd_agrees_with_the_cold_one() {
+        let m = Matrix3::new(0.3, -1.2, 2.0, 0.7, 0.1, -0.4, 1.5, 0.9, 0.2);
+        let cold = svd3(&m).unwrap();
+        // Seed with the right factor of a nearby matrix, as GNC does step to step.
+        let near = m + Matrix3::new(1e-3, 0.0, -2e-3, 0.0, 5e-4, 0.0, 1e-3, 0.0, 0.0);
+        let seeded = svd3_seeded(&m, &svd3(&near).unwrap().v).unwrap();
+        for (c, w) in cold.s.iter().zip(seeded.s.iter()) {
+            assert!((c - w).abs() < 1e-14, "{c} vs {w}");
+        }
+        let back = seeded.u * Matrix3::from_diagonal(&seeded.s) * seeded.v.transpose();
+        assert!((back - m).abs().max() < 1e-14);
+        let (a_cold, _) = nearest_rotation_seeded(&m, None).unwrap();
+        let (a_seeded, _) = nearest_rotation_seeded(&m, Some(&seeded.v)).unwrap();
+        assert!(angle_between_matrices(&a_cold, &a_seeded) < 1e-14);
+    }
+
+    #[test]
+    fn a_bad_seed_falls_back_to_the_cold_svd() {
+        let q = UnitQuaternion::from_euler_angles(0.3, -1.2, 2.5);
+        let a = q.to_rotation_matrix().into_inner();
+        let m = a * Matrix3::from_diagonal(&Vector3::new(3.0, 2.0, 0.5));
+        // Not orthogonal: the seeded SVD fails its checks and is redone from the identity.
+        let bad = Matrix3::new(1.0, 2.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0);
+        assert!(svd3_seeded(&m, &bad).is_none());
+        let (got, _) = nearest_rotation_seeded(&m, Some(&bad)).unwrap();
+        assert!(angle_between_matrices(&a, &got) < 1e-14);
+        let nan = Matrix3::from_element(f64::NAN);
+        let (got, _) = nearest_rotation_seeded(&m, Some(&nan)).unwrap();
+        assert!(angle_between_matrices(&a, &got) < 1e-14);
+    }
+
+    #[test]
     fn reflection_is_turned_into_a_proper_rotation() {
         // B = diag(1, 1, -1): the best proper rotation is the identity.
         let b = Matrix3::from_diagonal(&Vector3::new(2.0, 1.0, -0.5));
