@@ -239,6 +239,9 @@ pub(crate) struct Workspace {
     pub inl: Vec<bool>,
     /// Per-pair normalised residuals (GNC).
     pub rho: Vec<f64>,
+    /// Structure-of-arrays copy of the pairs, `[b.x, b.y, b.z, r.x, r.y, r.z]`
+    /// (GNC: filled once per solve so its per-pair loops use packed arithmetic).
+    pub soa: [Vec<f64>; 6],
 }
 
 impl Workspace {

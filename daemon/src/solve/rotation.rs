@@ -109,7 +109,34 @@ pub fn svd3(b: &Matrix3<f64>) -> Option<Svd3> {
             *x = b[(row, k)] / scale;
         }
     }
-    let mut v = [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]];
+    let v = [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]];
+    jacobi(b, scale, g, v)
+}
+
+/// [`svd3`] with the Jacobi rotations started from `v0` (columns, orthogonal)
+/// instead of the identity: `G = B V₀` is then already nearly orthogonal
+/// when `v0` is the right factor of a nearby matrix, so fewer sweeps are
+/// needed. Same stopping rule and the same checks as [`svd3`].
+pub fn svd3_seeded(b: &Matrix3<f64>, v0: &Matrix3<f64>) -> Option<Svd3> {
+    let scale = b.abs().max();
+    if !scale.is_finite() || scale <= f64::MIN_POSITIVE || !v0.iter().all(|x| x.is_finite()) {
+        return None;
+    }
+    let bs = b / scale;
+    let gm = bs * v0;
+    let col = |m: &Matrix3<f64>, k: usize| [m[(0, k)], m[(1, k)], m[(2, k)]];
+    let g = [col(&gm, 0), col(&gm, 1), col(&gm, 2)];
+    let v = [col(v0, 0), col(v0, 1), col(v0, 2)];
+    jacobi(b, scale, g, v)
+}
+
+/// The sweeps and checks of [`svd3`] from `G = (B / scale) V` (`g`, `v` by columns).
+fn jacobi(
+    b: &Matrix3<f64>,
+    scale: f64,
+    mut g: [[f64; 3]; 3],
+    mut v: [[f64; 3]; 3],
+) -> Option<Svd3> {
     let mut converged = false;
     for _ in 0..SVD_MAX_SWEEPS {
         let mut rotated = false;
@@ -203,6 +230,16 @@ pub fn svd3(b: &Matrix3<f64>) -> Option<Svd3> {
 /// dominant body direction (valid, deterministic; the verdict reports the
 /// axis as unobservable). A zero `B` is [`SolveError::Degenerate`].
 pub fn nearest_rotation(b: &Matrix3<f64>) -> Result<Matrix3<f64>, SolveError> {
+    nearest_rotation_seeded(b, None).map(|(a, _)| a)
+}
+
+/// [`nearest_rotation`], the SVD seeded with `v0` (see [`svd3_seeded`]; a
+/// seeded SVD that fails its checks is redone from the identity). Also
+/// returns the right singular vectors `V`, the seed for a nearby next `B`.
+pub(crate) fn nearest_rotation_seeded(
+    b: &Matrix3<f64>,
+    v0: Option<&Matrix3<f64>>,
+) -> Result<(Matrix3<f64>, Matrix3<f64>), SolveError> {
     let scale = b.abs().max();
     if !scale.is_finite() {
         return Err(SolveError::Numerical(
@@ -214,12 +251,15 @@ pub fn nearest_rotation(b: &Matrix3<f64>) -> Result<Matrix3<f64>, SolveError> {
             "attitude profile matrix vanishes: the weighted pairs cancel".into(),
         ));
     }
-    let svd = svd3(b).ok_or_else(|| SolveError::Numerical("SVD failed its checks".into()))?;
+    let svd = v0
+        .and_then(|v0| svd3_seeded(b, v0))
+        .or_else(|| svd3(b))
+        .ok_or_else(|| SolveError::Numerical("SVD failed its checks".into()))?;
     let (s, u, v) = (svd.s, svd.u, svd.v);
     if s[1] + s[2].abs() <= DEGENERACY_RATIO * (s[0] + s[1]) {
         let to: Vector3<f64> = u.column(0).into_owned();
         let from: Vector3<f64> = v.column(0).into_owned();
-        return Ok(shortest_arc(&from, &to));
+        return Ok((shortest_arc(&from, &to), v));
     }
     let d = v.determinant().signum();
     let a = u * Matrix3::from_diagonal(&Vector3::new(1.0, 1.0, d)) * v.transpose();
@@ -228,7 +268,7 @@ pub fn nearest_rotation(b: &Matrix3<f64>) -> Result<Matrix3<f64>, SolveError> {
             "nearest rotation is not a proper rotation".into(),
         ));
     }
-    Ok(a)
+    Ok((a, v))
 }
 
 /// The smallest rotation taking unit `from` to unit `to`; about a fixed
@@ -328,6 +368,38 @@ mod tests {
         let back = ours.u * Matrix3::from_diagonal(&ours.s) * ours.v.transpose();
         assert!((back - m).abs().max() < 1e-14);
         assert!((ours.u.determinant() - 1.0).abs() < 1e-14);
+    }
+
+    #[test]
+    fn seeded_svd_agrees_with_the_cold_one() {
+        let m = Matrix3::new(0.3, -1.2, 2.0, 0.7, 0.1, -0.4, 1.5, 0.9, 0.2);
+        let cold = svd3(&m).unwrap();
+        // Seed with the right factor of a nearby matrix, as GNC does step to step.
+        let near = m + Matrix3::new(1e-3, 0.0, -2e-3, 0.0, 5e-4, 0.0, 1e-3, 0.0, 0.0);
+        let seeded = svd3_seeded(&m, &svd3(&near).unwrap().v).unwrap();
+        for (c, w) in cold.s.iter().zip(seeded.s.iter()) {
+            assert!((c - w).abs() < 1e-14, "{c} vs {w}");
+        }
+        let back = seeded.u * Matrix3::from_diagonal(&seeded.s) * seeded.v.transpose();
+        assert!((back - m).abs().max() < 1e-14);
+        let (a_cold, _) = nearest_rotation_seeded(&m, None).unwrap();
+        let (a_seeded, _) = nearest_rotation_seeded(&m, Some(&seeded.v)).unwrap();
+        assert!(angle_between_matrices(&a_cold, &a_seeded) < 1e-14);
+    }
+
+    #[test]
+    fn a_bad_seed_falls_back_to_the_cold_svd() {
+        let q = UnitQuaternion::from_euler_angles(0.3, -1.2, 2.5);
+        let a = q.to_rotation_matrix().into_inner();
+        let m = a * Matrix3::from_diagonal(&Vector3::new(3.0, 2.0, 0.5));
+        // Not orthogonal: the seeded SVD fails its checks and is redone from the identity.
+        let bad = Matrix3::new(1.0, 2.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0);
+        assert!(svd3_seeded(&m, &bad).is_none());
+        let (got, _) = nearest_rotation_seeded(&m, Some(&bad)).unwrap();
+        assert!(angle_between_matrices(&a, &got) < 1e-14);
+        let nan = Matrix3::from_element(f64::NAN);
+        let (got, _) = nearest_rotation_seeded(&m, Some(&nan)).unwrap();
+        assert!(angle_between_matrices(&a, &got) < 1e-14);
     }
 
     #[test]
