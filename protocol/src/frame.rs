@@ -7,6 +7,7 @@
 //! the stream can go on and what the daemon answers.
 
 mod body;
+mod fast;
 mod skim;
 
 pub use body::{decode_body, decode_datagram};
