@@ -387,4 +387,6 @@ impl FrameDecoder {
 }
 
 #[cfg(test)]
+mod equivalence;
+#[cfg(test)]
 mod tests;
