@@ -141,6 +141,13 @@ fn text() -> BoxedStrategy<Vec<u8>> {
     .boxed()
 }
 
+/// A string of 1 to 3 arbitrary bytes, mostly not UTF-8.
+fn raw_str() -> BoxedStrategy<Vec<u8>> {
+    (vec(any::<u8>(), 1..4), 0u8..4)
+        .prop_map(|(t, f)| str_in(&t, f))
+        .boxed()
+}
+
 fn str_enc() -> BoxedStrategy<Vec<u8>> {
     (text(), 0u8..4).prop_map(|(t, f)| str_in(&t, f)).boxed()
 }
@@ -253,6 +260,9 @@ fn extra_pair() -> BoxedStrategy<Pair> {
                 (Just(str_in(k.as_bytes(), f)), value)
             }),
         2 => (str_enc(), any_value()),
+        // Strings of raw bytes, often not UTF-8, as key or as value.
+        1 => (raw_str(), scalar()),
+        1 => (str_enc(), raw_str()),
         1 => (any_value(), any_value()),
     ]
     .boxed()
