@@ -23,99 +23,124 @@ use crate::message::{Message, Obs, Rate, Truth};
 /// Decodes `body` when it is a well-formed `obs`, `rate` or `truth` of the
 /// plain shape; `None` means "use the general path".
 pub(super) fn decode_fast(body: &[u8]) -> Option<Message> {
-    let slots = scan(body)?;
-    let at = |off: Option<usize>| off.map(|pos| Cursor { buf: body, pos });
-    let type_name = at(slots.type_)?.str()?;
-    let token = optional(at(slots.token), |cur| cur.str().map(str::to_owned))?;
-    Some(match type_name {
-        "obs" => Message::Obs(Obs {
-            sensor: at(slots.sensor)?.str()?.to_owned(),
-            seq: at(slots.seq)?.u64()?,
-            t: at(slots.t)?.i64()?,
-            b: at(slots.b)?.f64_array()?,
-            r: at(slots.r)?.f64_array()?,
-            sigma: optional(at(slots.sigma), Cursor::f64)?,
+    let (kind, f) = scan(body)?;
+    let token = optional(f.token)?.map(str::to_owned);
+    Some(match kind {
+        Kind::Obs => Message::Obs(Obs {
+            sensor: required(f.sensor)?.to_owned(),
+            seq: required(f.seq)?,
+            t: required(f.t)?,
+            b: required(f.b)?,
+            r: required(f.r)?,
+            sigma: optional(f.sigma)?,
             token,
         }),
-        "rate" => Message::Rate(Rate {
-            sensor: at(slots.sensor)?.str()?.to_owned(),
-            seq: at(slots.seq)?.u64()?,
-            t: at(slots.t)?.i64()?,
-            w: at(slots.w)?.f64_array()?,
+        Kind::Rate => Message::Rate(Rate {
+            sensor: required(f.sensor)?.to_owned(),
+            seq: required(f.seq)?,
+            t: required(f.t)?,
+            w: required(f.w)?,
             token,
         }),
-        "truth" => Message::Truth(Truth {
-            t: at(slots.t)?.i64()?,
-            q: at(slots.q)?.f64_array()?,
+        Kind::Truth => Message::Truth(Truth {
+            t: required(f.t)?,
+            q: required(f.q)?,
             token,
         }),
-        _ => return None,
     })
 }
 
-/// An optional key: absent and `nil` both give `Some(None)`; `None` when the
-/// value is present but `read` refuses it.
-fn optional<'a, T>(
-    cur: Option<Cursor<'a>>,
-    read: impl FnOnce(&mut Cursor<'a>) -> Option<T>,
-) -> Option<Option<T>> {
-    let Some(mut cur) = cur else {
-        return Some(None);
-    };
-    if cur.nil() {
-        return Some(None);
+/// The three message types of the fast path.
+#[derive(Clone, Copy)]
+enum Kind {
+    Obs,
+    Rate,
+    Truth,
+}
+
+/// What the scan found for one known key.
+#[derive(Clone, Copy, Default)]
+enum Slot<T> {
+    #[default]
+    Absent,
+    /// Present, of the field's type.
+    Good(T),
+    /// Present, well formed, not of the field's type: fine where the key is
+    /// unknown to the message type (serde ignores it), a refusal elsewhere.
+    Bad,
+}
+
+fn required<T>(slot: Slot<T>) -> Option<T> {
+    match slot {
+        Slot::Good(v) => Some(v),
+        Slot::Absent | Slot::Bad => None,
     }
-    read(&mut cur).map(Some)
 }
 
-/// Offsets in the body of the values of the keys these three types use.
+/// An optional key: absent (or `nil`, read as `Good(None)`) gives `Some(None)`.
+fn optional<T>(slot: Slot<Option<T>>) -> Option<Option<T>> {
+    match slot {
+        Slot::Absent => Some(None),
+        Slot::Good(v) => Some(v),
+        Slot::Bad => None,
+    }
+}
+
+/// The values of the keys these three types use, read as their fields' types.
 #[derive(Default)]
-struct Slots {
-    type_: Option<usize>,
-    sensor: Option<usize>,
-    seq: Option<usize>,
-    t: Option<usize>,
-    b: Option<usize>,
-    r: Option<usize>,
-    sigma: Option<usize>,
-    token: Option<usize>,
-    w: Option<usize>,
-    q: Option<usize>,
+struct Fields<'a> {
+    sensor: Slot<&'a str>,
+    seq: Slot<u64>,
+    t: Slot<i64>,
+    b: Slot<[f64; 3]>,
+    r: Slot<[f64; 3]>,
+    w: Slot<[f64; 3]>,
+    q: Slot<[f64; 4]>,
+    sigma: Slot<Option<f64>>,
+    token: Slot<Option<&'a str>>,
 }
 
-/// Reads the whole body as a flat map, validating every byte, and records
-/// where each known key's value starts. `None` on any doubt: a repeated known
-/// key, a nested map, an ext, bytes after the map, anything malformed.
-fn scan(body: &[u8]) -> Option<Slots> {
+/// Reads the whole body as a flat map in one pass, validating every byte, and
+/// reads each known key's value as its field's type. `None` on any doubt: a
+/// `type` not one of the three, a repeated known key, a nested map, an ext,
+/// bytes after the map, anything malformed.
+fn scan(body: &[u8]) -> Option<(Kind, Fields<'_>)> {
     let mut cur = Cursor { buf: body, pos: 0 };
     let n_pairs = cur.map_len()?;
-    let mut slots = Slots::default();
+    let mut kind = None;
+    let mut f = Fields::default();
     for _ in 0..n_pairs {
-        let key = cur.str_bytes()?;
-        let slot = match key {
-            b"type" => &mut slots.type_,
-            b"sensor" => &mut slots.sensor,
-            b"seq" => &mut slots.seq,
-            b"t" => &mut slots.t,
-            b"b" => &mut slots.b,
-            b"r" => &mut slots.r,
-            b"sigma" => &mut slots.sigma,
-            b"token" => &mut slots.token,
-            b"w" => &mut slots.w,
-            b"q" => &mut slots.q,
+        match cur.str_bytes()? {
+            b"type" => {
+                let name = match cur.str_bytes()? {
+                    b"obs" => Kind::Obs,
+                    b"rate" => Kind::Rate,
+                    b"truth" => Kind::Truth,
+                    _ => return None,
+                };
+                if kind.replace(name).is_some() {
+                    return None;
+                }
+            }
+            b"sensor" => cur.fill(&mut f.sensor, Cursor::str)?,
+            b"seq" => cur.fill(&mut f.seq, Cursor::u64)?,
+            b"t" => cur.fill(&mut f.t, Cursor::i64)?,
+            b"b" => cur.fill(&mut f.b, Cursor::f64_array)?,
+            b"r" => cur.fill(&mut f.r, Cursor::f64_array)?,
+            b"w" => cur.fill(&mut f.w, Cursor::f64_array)?,
+            b"q" => cur.fill(&mut f.q, Cursor::f64_array)?,
+            b"sigma" => cur.fill(&mut f.sigma, |c| c.or_nil(Cursor::f64))?,
+            b"token" => cur.fill(&mut f.token, |c| c.or_nil(Cursor::str))?,
             other => {
                 std::str::from_utf8(other).ok()?;
                 cur.skip_value()?;
-                continue;
             }
-        };
-        if slot.is_some() {
-            return None;
         }
-        *slot = Some(cur.pos);
-        cur.skip_value()?;
     }
-    (cur.pos == body.len()).then_some(slots)
+    if cur.pos != body.len() {
+        return None;
+    }
+    Some((kind?, f))
 }
 
 /// A read position in the body; every read is bounds-checked and `None` past
@@ -151,11 +176,36 @@ impl<'a> Cursor<'a> {
         })
     }
 
-    /// Consumes a nil marker if there is one.
-    fn nil(&mut self) -> bool {
-        let is_nil = self.buf.get(self.pos) == Some(&0xc0);
-        self.pos += usize::from(is_nil);
-        is_nil
+    /// Reads the value of a known key into `slot` with `read`, or, when it is
+    /// not of that type, skips it as any value and marks the slot `Bad`.
+    /// `None` for a repeated key or a value the fast path cannot skip.
+    fn fill<T>(
+        &mut self,
+        slot: &mut Slot<T>,
+        read: impl FnOnce(&mut Cursor<'a>) -> Option<T>,
+    ) -> Option<()> {
+        if !matches!(slot, Slot::Absent) {
+            return None;
+        }
+        let start = self.pos;
+        *slot = match read(self) {
+            Some(v) => Slot::Good(v),
+            None => {
+                self.pos = start;
+                self.skip_value()?;
+                Slot::Bad
+            }
+        };
+        Some(())
+    }
+
+    /// `nil` (0xc0) as `None`, else the value `read` gives.
+    fn or_nil<T>(&mut self, read: impl FnOnce(&mut Cursor<'a>) -> Option<T>) -> Option<Option<T>> {
+        if self.buf.get(self.pos) == Some(&0xc0) {
+            self.pos += 1;
+            return Some(None);
+        }
+        read(self).map(Some)
     }
 
     fn map_len(&mut self) -> Option<usize> {
