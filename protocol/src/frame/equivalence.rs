@@ -28,13 +28,41 @@ fn int_in(v: i128, family: u8) -> Option<Vec<u8>> {
         0 => out.push(u8::try_from(v).ok().filter(|b| *b <= 0x7f)?),
         1 => out.push(i8::try_from(v).ok().filter(|b| *b >= -32)? as u8),
         2 => out.extend([0xcc, u8::try_from(v).ok()?]),
-        3 => out.extend([0xcd].into_iter().chain(u16::try_from(v).ok()?.to_be_bytes())),
-        4 => out.extend([0xce].into_iter().chain(u32::try_from(v).ok()?.to_be_bytes())),
-        5 => out.extend([0xcf].into_iter().chain(u64::try_from(v).ok()?.to_be_bytes())),
-        6 => out.extend([0xd0].into_iter().chain(i8::try_from(v).ok()?.to_be_bytes())),
-        7 => out.extend([0xd1].into_iter().chain(i16::try_from(v).ok()?.to_be_bytes())),
-        8 => out.extend([0xd2].into_iter().chain(i32::try_from(v).ok()?.to_be_bytes())),
-        _ => out.extend([0xd3].into_iter().chain(i64::try_from(v).ok()?.to_be_bytes())),
+        3 => out.extend(
+            [0xcd]
+                .into_iter()
+                .chain(u16::try_from(v).ok()?.to_be_bytes()),
+        ),
+        4 => out.extend(
+            [0xce]
+                .into_iter()
+                .chain(u32::try_from(v).ok()?.to_be_bytes()),
+        ),
+        5 => out.extend(
+            [0xcf]
+                .into_iter()
+                .chain(u64::try_from(v).ok()?.to_be_bytes()),
+        ),
+        6 => out.extend(
+            [0xd0]
+                .into_iter()
+                .chain(i8::try_from(v).ok()?.to_be_bytes()),
+        ),
+        7 => out.extend(
+            [0xd1]
+                .into_iter()
+                .chain(i16::try_from(v).ok()?.to_be_bytes()),
+        ),
+        8 => out.extend(
+            [0xd2]
+                .into_iter()
+                .chain(i32::try_from(v).ok()?.to_be_bytes()),
+        ),
+        _ => out.extend(
+            [0xd3]
+                .into_iter()
+                .chain(i64::try_from(v).ok()?.to_be_bytes()),
+        ),
     }
     Some(out)
 }
@@ -124,8 +152,14 @@ fn str_in(text: &[u8], family: u8) -> Vec<u8> {
     let mut out = match family {
         0 if len < 32 => vec![0xa0 | len as u8],
         0 | 1 if len < 256 => vec![0xd9, len as u8],
-        0..=2 => [0xda].into_iter().chain((len as u16).to_be_bytes()).collect(),
-        _ => [0xdb].into_iter().chain((len as u32).to_be_bytes()).collect(),
+        0..=2 => [0xda]
+            .into_iter()
+            .chain((len as u16).to_be_bytes())
+            .collect(),
+        _ => [0xdb]
+            .into_iter()
+            .chain((len as u32).to_be_bytes())
+            .collect(),
     };
     out.extend_from_slice(text);
     out
@@ -196,17 +230,18 @@ fn scalar() -> BoxedStrategy<Vec<u8>> {
 
 /// Any MessagePack value, [`scalar`]s nested up to 3 levels.
 fn any_value() -> BoxedStrategy<Vec<u8>> {
-    scalar().prop_recursive(3, 16, 4, |inner| {
-        prop_oneof![
-            (vec(inner.clone(), 0..4), 0u8..3).prop_map(|(items, f)| array_in(&items, f)),
-            (vec((inner.clone(), inner), 0..3), 0u8..3).prop_map(|(pairs, f)| {
-                let mut out = map_header(pairs.len(), f);
-                out.extend(pairs.into_iter().flat_map(|(k, v)| k.into_iter().chain(v)));
-                out
-            }),
-        ]
-    })
-    .boxed()
+    scalar()
+        .prop_recursive(3, 16, 4, |inner| {
+            prop_oneof![
+                (vec(inner.clone(), 0..4), 0u8..3).prop_map(|(items, f)| array_in(&items, f)),
+                (vec((inner.clone(), inner), 0..3), 0u8..3).prop_map(|(pairs, f)| {
+                    let mut out = map_header(pairs.len(), f);
+                    out.extend(pairs.into_iter().flat_map(|(k, v)| k.into_iter().chain(v)));
+                    out
+                }),
+            ]
+        })
+        .boxed()
 }
 
 /// A float array of `n` items, now and then of the wrong length.
@@ -225,7 +260,8 @@ fn field_value(key: &str) -> BoxedStrategy<Vec<u8>> {
         "seq" => prop_oneof![4 => uint_enc(), 1 => int_enc()].boxed(),
         "t" => {
             let in_range = int_value().prop_map(|v| v.clamp(i64::MIN.into(), i64::MAX.into()));
-            prop_oneof![12 => int_enc_of(in_range.boxed()), 1 => int_enc(), 1 => float_enc()].boxed()
+            prop_oneof![12 => int_enc_of(in_range.boxed()), 1 => int_enc(), 1 => float_enc()]
+                .boxed()
         }
         "b" | "r" | "w" => float_array(3),
         "q" => float_array(4),
@@ -306,7 +342,12 @@ fn pairs_for(ty: &'static str) -> BoxedStrategy<Vec<Pair>> {
     let extras = prop_oneof![3 => Just(Vec::new()).boxed(), 2 => vec(extra_pair(), 1..4).boxed()];
     (fields, type_pair, extras)
         .prop_map(|(fields, type_pair, extras)| {
-            fields.into_iter().flatten().chain(type_pair).chain(extras).collect()
+            fields
+                .into_iter()
+                .flatten()
+                .chain(type_pair)
+                .chain(extras)
+                .collect()
         })
         .boxed()
 }
@@ -337,7 +378,12 @@ fn body() -> impl Strategy<Value = Vec<u8>> {
         .prop_flat_map(pairs_for)
         .prop_flat_map(|pairs| {
             let count_delta = prop_oneof![40 => Just(0i64), 1 => Just(1), 1 => Just(-1)];
-            (Just(pairs).prop_shuffle(), 0u8..3, count_delta, corruption())
+            (
+                Just(pairs).prop_shuffle(),
+                0u8..3,
+                count_delta,
+                corruption(),
+            )
         })
         .prop_map(|(pairs, family, delta, corruption)| {
             let count = (pairs.len() as i64 + delta).max(0) as usize;
@@ -423,8 +469,14 @@ fn generated_bodies_reach_both_paths() {
             (None, Err(_)) => general_err += 1,
         }
     }
-    assert!(fast > n_cases / 5, "fast path took only {fast} of {n_cases}");
-    assert!(general_err > n_cases / 5, "only {general_err} errors of {n_cases}");
+    assert!(
+        fast > n_cases / 5,
+        "fast path took only {fast} of {n_cases}"
+    );
+    assert!(
+        general_err > n_cases / 5,
+        "only {general_err} errors of {n_cases}"
+    );
     assert!(general_ok > 10, "only {general_ok} fallbacks decoded");
     assert_eq!(fast_types.len(), 3, "{fast_types:?}");
 }

@@ -306,14 +306,12 @@ impl<'a> Cursor<'a> {
     /// Skips one value: a scalar, or an array of scalars. Maps, nested arrays
     /// and ext values are left to the general path.
     fn skip_value(&mut self) -> Option<()> {
-        if let Some(&m) = self.buf.get(self.pos) {
-            if let 0x90..=0x9f | 0xdc | 0xdd = m {
-                let n = self.array_len()?;
-                for _ in 0..n {
-                    self.skip_scalar()?;
-                }
-                return Some(());
+        if let Some(0x90..=0x9f | 0xdc | 0xdd) = self.buf.get(self.pos) {
+            let n = self.array_len()?;
+            for _ in 0..n {
+                self.skip_scalar()?;
             }
+            return Some(());
         }
         self.skip_scalar()
     }
@@ -379,7 +377,9 @@ mod tests {
         // MessagePack spec: fixmap 0x81, fixstr "type" a4 74 79 70 65,
         // fixstr "hello" a5 68 65 6c 6c 6f; an `obs` with nothing else; a
         // fixarray 0x90 body.
-        let hello = [0x81, 0xa4, b't', b'y', b'p', b'e', 0xa5, b'h', b'e', b'l', b'l', b'o'];
+        let hello = [
+            0x81, 0xa4, b't', b'y', b'p', b'e', 0xa5, b'h', b'e', b'l', b'l', b'o',
+        ];
         assert_eq!(decode_fast(&hello), None);
         let bare_obs = [0x81, 0xa4, b't', b'y', b'p', b'e', 0xa3, b'o', b'b', b's'];
         assert_eq!(decode_fast(&bare_obs), None);
