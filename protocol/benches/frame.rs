@@ -1,5 +1,7 @@
 //! Criterion benches of the wire format: frame encode and decode per message
-//! type, the stream decoder over a buffer of many frames, and validation.
+//! type, two other `obs` shapes (one on the fast path, one falling back to the
+//! general path), the stream decoder over a buffer of many frames, and
+//! validation.
 //! Short sampling so the whole file runs in well under a minute.
 
 use std::hint::black_box;
@@ -147,6 +149,39 @@ fn decode(c: &mut Criterion) {
     group.finish();
 }
 
+/// The sample obs with one extra unknown key of `value` (raw MessagePack).
+fn obs_with_unknown(value: &[u8]) -> Vec<u8> {
+    let mut body = Vec::new();
+    wahbad_protocol::encode_body_into(&Message::Obs(obs()), &mut body);
+    // MessagePack spec: fixmap 0x80-0x8f; the sample has 7 pairs (type +
+    // 6 fields), so bump the count and append fixstr "x" (a1 78) + value.
+    assert!(body[0] & 0xf0 == 0x80 && body[0] < 0x8f);
+    body[0] += 1;
+    body.extend_from_slice(&[0xa1, b'x']);
+    body.extend_from_slice(value);
+    body
+}
+
+/// Other shapes of `obs`: one the fast path still takes, and one it leaves
+/// to the general path (a nested map under an unknown key), to show what a
+/// fallback costs.
+fn decode_shapes(c: &mut Criterion) {
+    let mut group = c.benchmark_group("decode_body_shape");
+    // MessagePack spec: array 16 0xdc of two float 32 (0xca); fixmap 0x81
+    // holding fixstr "k" (a1 6b) -> positive fixint 1.
+    let flat = obs_with_unknown(&[0xdc, 0, 2, 0xca, 0x3f, 0x80, 0, 0, 0xca, 0, 0, 0, 0]);
+    let nested = obs_with_unknown(&[0x81, 0xa1, b'k', 0x01]);
+    for (name, body) in [
+        ("obs_unknown_array", flat),
+        ("obs_unknown_map_fallback", nested),
+    ] {
+        group.bench_function(name, |b| {
+            b.iter(|| decode_body(black_box(&body)).expect("decodes"))
+        });
+    }
+    group.finish();
+}
+
 fn stream(c: &mut Criterion) {
     // 1000 obs frames pushed at once and split + decoded, as a source's socket delivers them.
     let mut bytes = Vec::new();
@@ -184,6 +219,6 @@ criterion_group! {
         .sample_size(15)
         .warm_up_time(Duration::from_millis(200))
         .measurement_time(Duration::from_millis(600));
-    targets = encode, decode, stream, validate
+    targets = encode, decode, decode_shapes, stream, validate
 }
 criterion_main!(benches);

@@ -7,6 +7,7 @@
 //! the stream can go on and what the daemon answers.
 
 mod body;
+mod fast;
 mod skim;
 
 pub use body::{decode_body, decode_datagram};
@@ -385,5 +386,7 @@ impl FrameDecoder {
     }
 }
 
+#[cfg(test)]
+mod equivalence;
 #[cfg(test)]
 mod tests;

@@ -1,16 +1,45 @@
 //! Decoding one body (a frame's contents or a datagram) into a [`Message`].
 //!
-//! Two passes: the structural pass ([`super::skim`]) classifies malformed
-//! MessagePack and reads the `type`; then the struct of that type is decoded by
-//! serde straight from the bytes, with rmp-serde's nesting limit set and the
-//! path of a failing key kept for the error text.
+//! **Fast path** ([`super::fast`]). Replay of a dense log and a busy source
+//! are bounded by decoding `obs`, `rate` and `truth`, so these three have a
+//! hand-written one-pass decoder for their common shape: a map (fixmap, map
+//! 16/32) with string keys (fixstr, str 8/16/32) in any order, each known key
+//! once, numbers in every encoding the protocol allows (any integer width for
+//! integers; float64, float32 or any integer for floats), arrays of exactly
+//! the field's length, optional keys absent or `nil`, and unknown keys whose
+//! value is a scalar or an array of scalars. It reads every byte of the body,
+//! so what it accepts is well-formed MessagePack the structural pass would
+//! pass, and it yields exactly the value serde would.
+//!
+//! **Fallback rule.** Whenever the fast path does not fully recognise a body
+//! (another type, a repeated known key, a nested map or an ext in an unknown
+//! key, a wrong type, a bin where a string is due, any malformed byte) it
+//! returns nothing and the general path below runs from the start. Errors are
+//! therefore always worded by the general path, byte for byte as before.
+//!
+//! **General path.** Two passes: the structural pass ([`super::skim`])
+//! classifies malformed MessagePack and reads the `type`; then the struct of
+//! that type is decoded by serde straight from the bytes, with rmp-serde's
+//! nesting limit set and the path of a failing key kept for the error text.
 
+use super::fast::decode_fast;
 use super::skim::{skim, Fault};
 use super::{FrameError, MessageIds, MAX_DEPTH, MAX_FRAME_LEN};
 use crate::message::{Message, MESSAGE_TYPES};
 
 /// Decodes one MessagePack body (no length prefix) into a message.
 pub fn decode_body(body: &[u8]) -> Result<Message, FrameError> {
+    if body.is_empty() {
+        return Err(FrameError::ZeroLength);
+    }
+    if let Some(msg) = decode_fast(body) {
+        return Ok(msg);
+    }
+    decode_general(body)
+}
+
+/// The general path: structural pass, then serde; every error is worded here.
+pub(super) fn decode_general(body: &[u8]) -> Result<Message, FrameError> {
     if body.is_empty() {
         return Err(FrameError::ZeroLength);
     }
@@ -38,7 +67,7 @@ pub fn decode_body(body: &[u8]) -> Result<Message, FrameError> {
             ids: ids.owned(),
         });
     }
-    // Fast path: plain serde. The path-tracking pass runs only to word an
+    // Plain serde first. The path-tracking pass runs only to word an
     // error, so a good message does not pay for it and errors read the same.
     if let Ok(msg) = decode_plain(body, name) {
         return Ok(msg);
