@@ -93,24 +93,34 @@ pub fn assess_into(v: &mut Verdict, pairs: &[Pair], q: &UnitQuaternion<f64>, gat
     let a = q.to_rotation_matrix().into_inner();
     v.residuals.clear();
     v.inliers.clear();
+    // Three passes, for speed only: squared chords (or a negative mark for an
+    // invalid pair); chords to angles, a branch-free loop the compiler runs
+    // two or four pairs wide, with the rare large angles redone after; gates
+    // and sums. Each pair's arithmetic is that of a single loop.
+    v.residuals
+        .extend(pairs.iter().map(|p| match checked_unit_pair(p) {
+            Some((b, r)) => (b - a * r).norm_squared(),
+            None => INVALID_CHORD2,
+        }));
+    for theta in v.residuals.iter_mut() {
+        *theta = small_angle_of_chord2(*theta);
+    }
+    for (theta, p) in v.residuals.iter_mut().zip(pairs) {
+        if theta.is_nan() || *theta > SERIES_MAX_ANGLE {
+            *theta = match checked_unit_pair(p) {
+                Some((b, r)) => large_angle(&b, &(a * r)),
+                None => std::f64::consts::PI,
+            };
+        }
+    }
     let (mut info, mut geometry) = (Spread::default(), Spread::default());
     let mut n_inliers = 0;
-    for p in pairs {
-        let (Some(b), Some(r)) = (unit_or_none(&p.b), unit_or_none(&p.r)) else {
-            v.residuals.push(std::f64::consts::PI);
-            v.inliers.push(false);
-            continue;
-        };
-        if !(p.sigma.is_finite() && p.sigma > 0.0) {
-            v.residuals.push(std::f64::consts::PI);
-            v.inliers.push(false);
-            continue;
-        }
-        let theta = residual_angle(&b, &(a * r));
-        let inlier = theta <= gate_k * p.sigma;
-        v.residuals.push(theta);
-        v.inliers.push(inlier);
-        if inlier {
+    for (&theta, p) in v.residuals.iter().zip(pairs) {
+        let unit_pair = (theta <= gate_k * p.sigma)
+            .then(|| checked_unit_pair(p))
+            .flatten();
+        v.inliers.push(unit_pair.is_some());
+        if let Some((b, r)) = unit_pair {
             n_inliers += 1;
             let w = 1.0 / (p.sigma * p.sigma);
             info.add(w, &b);
@@ -139,6 +149,16 @@ pub fn assess_into(v: &mut Verdict, pairs: &[Pair], q: &UnitQuaternion<f64>, gat
     v.observability = observability;
 }
 
+/// The pair's vectors at unit length, or `None` when a vector is zero or not
+/// finite or σ is not finite and `> 0` (such a pair is an outlier at `π`).
+#[inline]
+fn checked_unit_pair(p: &Pair) -> Option<(Vector3<f64>, Vector3<f64>)> {
+    if !(p.sigma.is_finite() && p.sigma > 0.0) {
+        return None;
+    }
+    Some((unit_or_none(&p.b)?, unit_or_none(&p.r)?))
+}
+
 /// `v` at unit length, or `None` when it is zero or not finite. A vector
 /// already unit to rounding is kept as it is (the usual case: inputs are
 /// normalised at the door).
@@ -155,32 +175,46 @@ fn unit_or_none(v: &Vector3<f64>) -> Option<Vector3<f64>> {
     }
 }
 
-/// Half-chord up to which [`residual_angle`] uses the arcsine series
-/// (`θ ≤ 0.1` rad).
-const SERIES_MAX_HALF_CHORD: f64 = 0.05;
+/// Residual angle up to which the arcsine series is used, rad (half-chord 0.05).
+const SERIES_MAX_ANGLE: f64 = 0.1;
 
-/// The angle between unit vectors `b` and `ar`.
-///
-/// From the chord `c = ‖b − A r‖`: `θ = 2 asin(c/2)`. For `c/2 ≤ 0.05` (every
-/// inlier of a sensor with σ up to about 1.5°) by the arcsine's Taylor series
-/// to the `x¹³` term, exact to rounding (the first term left out,
-/// `(143/10240)·x¹⁵`, is below 1e-21 relative), and as accurate as the
-/// `atan2(|b × Ar|, b · Ar)` form used beyond (both carry the absolute
-/// rounding of the vector components, about 1e-16 rad). The series replaces an
-/// `atan2` per pair, which was most of the verdict's time.
+/// Marks an invalid pair among the squared chords (any negative value).
+const INVALID_CHORD2: f64 = -1.0;
+
+/// The angle of squared chord `c2` between unit vectors, `θ = 2 asin(√c2 / 2)`,
+/// by the arcsine's Taylor series; meant for `θ ≤ SERIES_MAX_ANGLE` (half-chord
+/// `x ≤ 0.05`), where it is exact to rounding: the first term left out,
+/// `(143/10240)·x¹⁵`, is below 1e-21 relative. Beyond that, or for a negative
+/// `c2`, it returns a value above `SERIES_MAX_ANGLE` or NaN, and the caller
+/// uses [`large_angle`]. Branch-free, so a loop over many chords runs packed.
+/// The series replaces an `atan2` per pair, which was most of the verdict's
+/// time; it carries the same absolute rounding as the `atan2` form (that of the
+/// vector components, about 1e-16 rad).
 #[inline]
+fn small_angle_of_chord2(c2: f64) -> f64 {
+    let x = 0.5 * c2.sqrt();
+    let x2 = x * x;
+    let tail = x2
+        * (1.0 / 6.0
+            + x2 * (3.0 / 40.0
+                + x2 * (5.0 / 112.0
+                    + x2 * (35.0 / 1152.0 + x2 * (63.0 / 2816.0 + x2 * (231.0 / 13312.0))))));
+    2.0 * (x + x * tail)
+}
+
+/// The angle between unit vectors at any size, `atan2(|b × Ar|, b · Ar)`.
+fn large_angle(b: &Vector3<f64>, ar: &Vector3<f64>) -> f64 {
+    b.cross(ar).norm().atan2(b.dot(ar))
+}
+
+/// The angle between unit vectors `b` and `ar` (the two forms above).
+#[cfg(test)]
 fn residual_angle(b: &Vector3<f64>, ar: &Vector3<f64>) -> f64 {
-    let x = 0.5 * (b - ar).norm();
-    if x <= SERIES_MAX_HALF_CHORD {
-        let x2 = x * x;
-        let tail = x2
-            * (1.0 / 6.0
-                + x2 * (3.0 / 40.0
-                    + x2 * (5.0 / 112.0
-                        + x2 * (35.0 / 1152.0 + x2 * (63.0 / 2816.0 + x2 * (231.0 / 13312.0))))));
-        2.0 * (x + x * tail)
+    let theta = small_angle_of_chord2((b - ar).norm_squared());
+    if theta <= SERIES_MAX_ANGLE {
+        theta
     } else {
-        b.cross(ar).norm().atan2(b.dot(ar))
+        large_angle(b, ar)
     }
 }
 
