@@ -48,3 +48,34 @@ fn same_inputs_same_bytes() {
     head.extend(tail_a);
     assert_eq!(encode(&head), encode(&first));
 }
+
+#[test]
+fn without_verdicts_only_the_verdicts_go() {
+    let scene = bench_scene(&SceneOptions {
+        seed: 9,
+        duration_ms: 4_000,
+        rate: |t| Vector3::new(0.02, 0.04 * t.cos(), -0.01),
+        with_rates: true,
+        gyro_arw: 3e-5,
+        mag_outliers: 0.3,
+    });
+    let config = EstimatorConfig::default();
+    let (_, with) = run_fresh(&config, &scene.inputs);
+    let mut lean = Estimator::new(config).unwrap();
+    lean.set_verdicts(false);
+    let without = run(&mut lean, &scene.inputs);
+    assert_eq!(with.len(), without.len());
+    assert!(solutions(&with).len() >= 30);
+    let stripped: Vec<Output> = with
+        .into_iter()
+        .map(|o| match o {
+            Output::Solution(mut s) => {
+                assert!(s.verdicts.is_some());
+                s.verdicts = None;
+                Output::Solution(s)
+            }
+            other => other,
+        })
+        .collect();
+    assert_eq!(encode(&stripped), encode(&without));
+}

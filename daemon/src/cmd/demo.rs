@@ -255,6 +255,7 @@ fn report(log: &Path, out_dir: &Path, live: &LiveFeed) -> Result<(), Failure> {
     let options = RunOptions {
         speed: None,
         keep_verdicts: true,
+        emit_verdicts: true,
     };
     let run = replay::run(input, config, &options, &mut |_| Ok(()), &mut |_| {})
         .context("replaying the demo's recording")

@@ -127,6 +127,7 @@ pub fn run(args: &ReplayArgs) -> Result<(), Failure> {
     let options = RunOptions {
         speed: args.speed,
         keep_verdicts: args.report.is_some(),
+        emit_verdicts: args.solutions.is_some() || args.serve.is_some(),
     };
     let bar = progress_bar(log.file_len());
     let mut progress = |bytes: u64| bar.set_position(bytes);

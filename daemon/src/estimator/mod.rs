@@ -249,6 +249,8 @@ pub struct Estimator {
     last_solved: Option<i64>,
     estimate: Option<Estimate>,
     force_cold: bool,
+    /// Whether solutions carry per-observation verdicts (see [`Estimator::set_verdicts`]).
+    emit_verdicts: bool,
     inlier_alert: LevelAlert,
     unobservable_alert: LevelAlert,
     stats: Stats,
@@ -295,6 +297,7 @@ impl Estimator {
             last_solved: None,
             estimate: None,
             force_cold: true,
+            emit_verdicts: true,
             inlier_alert: LevelAlert::from_config(&alerts.inlier_fraction),
             unobservable_alert: LevelAlert::new(
                 2.0,
@@ -324,6 +327,14 @@ impl Estimator {
     /// The configuration in force.
     pub fn config(&self) -> &EstimatorConfig {
         &self.config
+    }
+
+    /// Whether solutions carry their per-observation verdicts (default on).
+    /// Off, `Solution::verdicts` is `None` and the epoch skips building them;
+    /// estimates, counts and alerts are unchanged. For runs whose outputs
+    /// drop the verdicts anyway (a replay writing only a summary).
+    pub fn set_verdicts(&mut self, on: bool) {
+        self.emit_verdicts = on;
     }
 
     /// Counters since start.
@@ -631,10 +642,12 @@ impl Estimator {
                             0
                         };
                     }
+                    // The variance for now: its square root is taken in a
+                    // loop of its own below, where the roots overlap.
                     let dt_s = (epoch - obs.t) as f64 / NS_PER_S;
                     (
                         k_epoch * obs.anchored_b,
-                        (obs.sigma * obs.sigma + arw2 * dt_s).sqrt(),
+                        obs.sigma * obs.sigma + arw2 * dt_s,
                     )
                 }
                 None => (obs.b, obs.sigma),
@@ -642,6 +655,11 @@ impl Estimator {
             let obs = self.obs.get(obs_idx);
             self.pairs.push(Pair { b, r: obs.r, sigma });
             self.counts[obs.sensor_idx as usize].0 += 1;
+        }
+        if propagated {
+            for pair in &mut self.pairs {
+                pair.sigma = pair.sigma.sqrt();
+            }
         }
         let geometry_changed = self.present_before.len() != self.counts.len()
             || self
@@ -747,19 +765,21 @@ impl Estimator {
         });
 
         // Verdicts and per-sensor counts.
-        let mut verdicts = Vec::with_capacity(n);
+        let mut verdicts = Vec::with_capacity(if self.emit_verdicts { n } else { 0 });
         for (pair_idx, obs_idx) in range.enumerate() {
             let obs = self.obs.get(obs_idx);
             let inlier = self.verdict.inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
             if inlier {
                 self.counts[obs.sensor_idx as usize].1 += 1;
             }
-            verdicts.push(ObsVerdict {
-                sensor: self.sensors[obs.sensor_idx as usize].name.clone(),
-                seq: obs.seq,
-                residual: self.verdict.residuals[pair_idx],
-                inlier,
-            });
+            if self.emit_verdicts {
+                verdicts.push(ObsVerdict {
+                    sensor: self.sensors[obs.sensor_idx as usize].name.clone(),
+                    seq: obs.seq,
+                    residual: self.verdict.residuals[pair_idx],
+                    inlier,
+                });
+            }
         }
         let n_inliers: u32 = self.counts.iter().map(|c| c.1).sum();
         let inlier_fraction = n_inliers as f64 / n as f64;
@@ -786,7 +806,7 @@ impl Estimator {
             method: method.to_string(),
             iterations,
             sensors,
-            verdicts: Some(verdicts),
+            verdicts: self.emit_verdicts.then_some(verdicts),
             propagated: (!propagated).then_some(false),
         }));
         self.stats.epochs += 1;

@@ -152,6 +152,10 @@ pub struct RunOptions {
     pub speed: Option<f64>,
     /// Keep per-observation verdicts in [`ReplayRun::solutions`] (the report needs them).
     pub keep_verdicts: bool,
+    /// Hand solutions to `on_output` with their verdicts (the solutions
+    /// file and republished feeds carry them). With neither this nor
+    /// `keep_verdicts` the estimator does not build verdicts at all.
+    pub emit_verdicts: bool,
 }
 
 /// The data time an input carries.
@@ -175,6 +179,7 @@ pub fn run(
 ) -> Result<ReplayRun, ReplayError> {
     let mut estimator =
         Estimator::new(config).map_err(|err| ReplayError::Config(err.to_string()))?;
+    estimator.set_verdicts(options.keep_verdicts || options.emit_verdicts);
     let mut pacer = Pacer::new(options.speed);
     let mut reported_bytes = u64::MAX;
     let mut run = ReplayRun::default();
