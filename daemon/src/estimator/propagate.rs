@@ -164,9 +164,10 @@ impl RateBuffer {
     }
 
     /// Times before this have a settled `K`: a sample appended in time order
-    /// does not change it (it moves only the last hold's end).
+    /// (at or after the last one) starts its hold at or after the last
+    /// sample's time, so `K` before that time stays.
     pub fn settled_before(&self) -> i64 {
-        self.samples.back().map_or(i64::MIN, |h| h.from)
+        self.samples.back().map_or(i64::MIN, |h| h.sample.t)
     }
 
     /// Changes whenever `K` changed at a settled time (see the module doc).

@@ -264,6 +264,11 @@ pub(crate) fn nearest_rotation_seeded(
     let d = v.determinant().signum();
     let a = u * Matrix3::from_diagonal(&Vector3::new(1.0, 1.0, d)) * v.transpose();
     if !is_rotation(&a) {
+        if v0.is_some() {
+            // A seeded decomposition that passed its own checks but not this
+            // one: the cold one is the judge.
+            return nearest_rotation_seeded(b, None);
+        }
         return Err(SolveError::Numerical(
             "nearest rotation is not a proper rotation".into(),
         ));

@@ -278,7 +278,11 @@ impl<'a> Cursor<'a> {
             }
             0xca => {
                 self.pos += 1;
-                Some(f64::from(f32::from_be_bytes(self.be()?)))
+                // As serde's `f64` visitor: the sign is copied explicitly,
+                // since a NaN's sign is not promised through the conversion.
+                let x = f32::from_be_bytes(self.be()?);
+                let sign = if x.is_sign_negative() { -1.0 } else { 1.0 };
+                Some(f64::from(x).copysign(sign))
             }
             _ => {
                 let v = self.int()?;
