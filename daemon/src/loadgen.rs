@@ -429,7 +429,8 @@ mod tests {
     #[test]
     fn scene_messages_validate_and_keep_per_sensor_order() {
         let mut scene = Scene::new();
-        let mut last: std::collections::HashMap<String, (u64, i64)> = Default::default();
+        let mut last: std::collections::HashMap<wahbad_protocol::SensorName, (u64, i64)> =
+            Default::default();
         for idx in 0..500u64 {
             let t = idx as i64 * 1000;
             let (sensor, seq) = match scene.message(idx, t) {

@@ -99,7 +99,7 @@ fuzz_target!(|data: &[u8]| {
     while let Ok(raw) = Raw::arbitrary(&mut u) {
         match raw {
             Raw::Obs { sensor, seq, t, b, r, sigma } => check_obs(&Obs {
-                sensor,
+                sensor: sensor.into(),
                 seq,
                 t,
                 b,
@@ -108,7 +108,7 @@ fuzz_target!(|data: &[u8]| {
                 token: None,
             }),
             Raw::Rate { sensor, seq, t, w } => check_rate(&Rate {
-                sensor,
+                sensor: sensor.into(),
                 seq,
                 t,
                 w,

@@ -6,10 +6,11 @@
 
 use serde::{Deserialize, Serialize};
 
-/// A sensor id in the daemon's outputs (verdicts, per-sensor counts): a
+/// A sensor id in observations, rate samples and the daemon's outputs: a
 /// string that is copied, not allocated, when short (up to 23 bytes inline,
-/// shared beyond), because every solution repeats the id of each observation
-/// of its window. On the wire it is an ordinary MessagePack string.
+/// shared beyond), because every message carries one and every solution
+/// repeats the id of each observation of its window. On the wire it is an
+/// ordinary MessagePack string.
 pub type SensorName = smol_str::SmolStr;
 
 /// Protocol version spoken by this crate.
@@ -232,7 +233,7 @@ impl std::fmt::Display for ErrorCode {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Obs {
     /// Sensor id, 1–64 chars of `[A-Za-z0-9_.-]`.
-    pub sensor: String,
+    pub sensor: SensorName,
     /// Sequence number, per sensor, increasing.
     pub seq: u64,
     /// Measurement time, integer nanoseconds on the bench clock.
@@ -254,7 +255,7 @@ pub struct Obs {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Rate {
     /// Sensor id of the gyro.
-    pub sensor: String,
+    pub sensor: SensorName,
     /// Sequence number, per sensor, increasing.
     pub seq: u64,
     /// Sample time, integer nanoseconds on the bench clock.

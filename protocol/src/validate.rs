@@ -5,13 +5,13 @@
 //! Stateful rules (time going backwards for a sensor) belong to the estimator.
 //! The error's `Display` text is the `reason` a `reject` carries.
 
-use crate::message::{Obs, Rate, Truth};
+use crate::message::{Obs, Rate, SensorName, Truth};
 
 /// An observation that passed validation: unit vectors, finite values.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ValidObs {
     /// Sensor id (checked pattern).
-    pub sensor: String,
+    pub sensor: SensorName,
     /// Sequence number.
     pub seq: u64,
     /// Measurement time, ns.
@@ -33,7 +33,7 @@ impl ValidObs {
         self.sigma
             .or(default)
             .ok_or_else(|| ValidationError::NoSigma {
-                sensor: self.sensor.clone(),
+                sensor: self.sensor.to_string(),
             })
     }
 }
@@ -42,7 +42,7 @@ impl ValidObs {
 #[derive(Debug, Clone, PartialEq)]
 pub struct ValidRate {
     /// Sensor id (checked pattern).
-    pub sensor: String,
+    pub sensor: SensorName,
     /// Sequence number.
     pub seq: u64,
     /// Sample time, ns.
@@ -399,7 +399,7 @@ mod tests {
             Err(ValidationError::NonFinite { field: "w[1]", .. })
         ));
         let err = validate_rate(&Rate {
-            sensor: String::new(),
+            sensor: SensorName::default(),
             ..rate
         });
         assert!(matches!(

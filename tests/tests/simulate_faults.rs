@@ -45,7 +45,7 @@ fn run(scenario: &Scenario) -> Run {
     for message in simulator.by_ref() {
         let (sensor, t, content) = match message {
             Message::Obs(obs) => (
-                obs.sensor,
+                obs.sensor.to_string(),
                 obs.t,
                 Content::Obs {
                     seq: obs.seq,
@@ -55,7 +55,7 @@ fn run(scenario: &Scenario) -> Run {
                 },
             ),
             Message::Rate(rate) => (
-                rate.sensor,
+                rate.sensor.to_string(),
                 rate.t,
                 Content::Rate {
                     seq: rate.seq,

@@ -175,8 +175,8 @@ fn time_never_decreases_and_seq_counts_up_per_sensor() {
         assert!((0..120_000_000_000).contains(&t));
         last_t = t;
         let (sensor, seq) = match &message {
-            Message::Obs(obs) => (obs.sensor.clone(), obs.seq),
-            Message::Rate(rate) => (rate.sensor.clone(), rate.seq),
+            Message::Obs(obs) => (obs.sensor.to_string(), obs.seq),
+            Message::Rate(rate) => (rate.sensor.to_string(), rate.seq),
             _ => continue,
         };
         let expected = next_seq.entry(sensor).or_insert(0);

@@ -510,7 +510,7 @@ impl Estimator {
     fn ingest_rate(&mut self, rate: ValidRate, out: &mut Vec<Output>) -> Result<(), IngestError> {
         if rate.w.iter().any(|w| w.abs() > MAX_RATE_RAD_S) {
             return Err(IngestError::RateTooLarge {
-                sensor: rate.sensor,
+                sensor: rate.sensor.to_string(),
             });
         }
         self.admit(&rate.sensor, rate.seq, rate.t, false, out)?;

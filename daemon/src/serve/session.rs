@@ -272,10 +272,14 @@ pub(super) fn source_input_from(msg: Message) -> Result<Input, Answer> {
     match msg {
         Message::Obs(obs) => validate_obs(&obs)
             .map(Input::Obs)
-            .map_err(|err| reject(Some(obs.sensor.clone()), Some(obs.seq), err.to_string())),
-        Message::Rate(rate) => validate_rate(&rate)
-            .map(Input::Rate)
-            .map_err(|err| reject(Some(rate.sensor.clone()), Some(rate.seq), err.to_string())),
+            .map_err(|err| reject(Some(obs.sensor.to_string()), Some(obs.seq), err.to_string())),
+        Message::Rate(rate) => validate_rate(&rate).map(Input::Rate).map_err(|err| {
+            reject(
+                Some(rate.sensor.to_string()),
+                Some(rate.seq),
+                err.to_string(),
+            )
+        }),
         Message::Truth(truth) => validate_truth(&truth)
             .map(Input::Truth)
             .map_err(|err| reject(None, None, err.to_string())),

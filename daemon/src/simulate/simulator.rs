@@ -342,7 +342,7 @@ impl Simulator {
         }
         let seq = self.streams[stream_idx].take_seq();
         self.pending.push_back(Message::Rate(Rate {
-            sensor: name,
+            sensor: name.into(),
             seq,
             t,
             w: w.into(),
@@ -485,7 +485,7 @@ impl Simulator {
 
 fn obs(sensor: &str, seq: u64, t: i64, b: Vector3<f64>, r: Vector3<f64>, sigma: f64) -> Message {
     Message::Obs(Obs {
-        sensor: sensor.to_owned(),
+        sensor: sensor.into(),
         seq,
         t,
         b: b.into(),

@@ -281,7 +281,7 @@ pub fn scene(frame: u64, t: i64) -> Vec<Message> {
         .map(|(idx, r)| {
             let r = unit(*r);
             Message::Obs(Obs {
-                sensor: format!("s{idx}"),
+                sensor: format!("s{idx}").into(),
                 seq: frame,
                 t,
                 b: rotate(q, r),

@@ -18,7 +18,7 @@
 //! a float for an integer. Marker table: MessagePack specification, "Formats"
 //! overview (github.com/msgpack/msgpack/blob/master/spec.md).
 
-use crate::message::{Message, Obs, Rate, Truth};
+use crate::message::{Message, Obs, Rate, SensorName, Truth};
 
 /// Decodes `body` when it is a well-formed `obs`, `rate` or `truth` of the
 /// plain shape; `None` means "use the general path".
@@ -27,7 +27,7 @@ pub(super) fn decode_fast(body: &[u8]) -> Option<Message> {
     let token = optional(f.token)?.map(str::to_owned);
     Some(match kind {
         Kind::Obs => Message::Obs(Obs {
-            sensor: required(f.sensor)?.to_owned(),
+            sensor: SensorName::new(required(f.sensor)?),
             seq: required(f.seq)?,
             t: required(f.t)?,
             b: required(f.b)?,
@@ -36,7 +36,7 @@ pub(super) fn decode_fast(body: &[u8]) -> Option<Message> {
             token,
         }),
         Kind::Rate => Message::Rate(Rate {
-            sensor: required(f.sensor)?.to_owned(),
+            sensor: SensorName::new(required(f.sensor)?),
             seq: required(f.seq)?,
             t: required(f.t)?,
             w: required(f.w)?,

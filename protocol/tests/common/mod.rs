@@ -60,7 +60,7 @@ pub fn samples() -> Vec<Message> {
             token: None,
         }),
         Message::Obs(Obs {
-            sensor: "A".repeat(64),
+            sensor: "A".repeat(64).into(),
             seq: u64::MAX,
             t: i64::MIN,
             b: [f64::MAX, -f64::MIN_POSITIVE, -0.0],

@@ -16,7 +16,7 @@ pub const S: i64 = 1_000_000_000;
 /// An observation input, vectors normalised here as validation would.
 pub fn obs(sensor: &str, seq: u64, t: i64, b: Vector3<f64>, r: Vector3<f64>, sigma: f64) -> Input {
     Input::Obs(ValidObs {
-        sensor: sensor.to_string(),
+        sensor: sensor.into(),
         seq,
         t,
         b: b.normalize().into(),
@@ -28,7 +28,7 @@ pub fn obs(sensor: &str, seq: u64, t: i64, b: Vector3<f64>, r: Vector3<f64>, sig
 /// A rate input.
 pub fn rate(sensor: &str, seq: u64, t: i64, w: Vector3<f64>) -> Input {
     Input::Rate(ValidRate {
-        sensor: sensor.to_string(),
+        sensor: sensor.into(),
         seq,
         t,
         w: w.into(),
