@@ -1,5 +1,8 @@
 //! Criterion benches of the streaming estimator: the steady-state cost of one
-//! epoch with a 200-observation window, `auto` against plain least squares.
+//! epoch with a 200-observation window, `auto` against plain least squares,
+//! and the same at 2,000 observations a window (`estimator_epoch_window2000`:
+//! every vector sensor ten times as fast, the window of the live latency
+//! figure at 2,000 observations a second).
 //!
 //! Scene: star tracker (5 stars at 10 Hz), sun sensor (50 Hz), magnetometer
 //! (100 Hz, 5 % outliers), gyro (100 Hz), slow slew; span 1 s, period 100 ms,
@@ -40,8 +43,10 @@ fn noisy(rng: &mut ChaCha8Rng, v: Vector3<f64>, sigma: f64) -> Vector3<f64> {
     (v + Vector3::new(gauss(rng), gauss(rng), gauss(rng)) * (sigma / 2f64.sqrt())).normalize()
 }
 
-/// Inputs of the bench scene for `duration_ms`, in time order.
-fn scene(duration_ms: i64) -> Vec<Input> {
+/// Inputs of the bench scene for `duration_ms`, in time order; `dense`
+/// multiplies every vector sensor's rate by ten (2,000 observations a second).
+fn scene(duration_ms: i64, dense: bool) -> Vec<Input> {
+    let x = if dense { 10 } else { 1 };
     let mut rng = ChaCha8Rng::seed_from_u64(1);
     let w = Vector3::new(0.01, 0.02, -0.03);
     let q0 = UnitQuaternion::from_scaled_axis(Vector3::new(0.3, 0.2, -0.1));
@@ -83,23 +88,28 @@ fn scene(duration_ms: i64) -> Vec<Input> {
             gyro_seq += 1;
         }
         if ms % 100 == 3 {
-            for k in 0..5 {
-                let r = stars[(ms as usize / 100 * 5 + k) % stars.len()];
+            for k in 0..5 * x {
+                let r = stars[(ms as usize / 100 * 5 * x + k) % stars.len()];
                 let b = noisy(&mut rng, a * r, 2e-4);
                 push_obs(&mut inputs, 0, "st", t, b, r, 2e-4);
             }
         }
+        // Dense: the sun and magnetometer samples come in bursts of ten.
         if ms % 20 == 7 {
-            let b = noisy(&mut rng, a * sun, 1e-3);
-            push_obs(&mut inputs, 1, "sun", t, b, sun, 1e-3);
+            for _ in 0..x {
+                let b = noisy(&mut rng, a * sun, 1e-3);
+                push_obs(&mut inputs, 1, "sun", t, b, sun, 1e-3);
+            }
         }
         if ms % 10 == 5 {
-            let b = if rng.random::<f64>() < 0.05 {
-                unit(&mut rng)
-            } else {
-                noisy(&mut rng, a * mag, 3e-3)
-            };
-            push_obs(&mut inputs, 2, "mag", t, b, mag, 3e-3);
+            for _ in 0..x {
+                let b = if rng.random::<f64>() < 0.05 {
+                    unit(&mut rng)
+                } else {
+                    noisy(&mut rng, a * mag, 3e-3)
+                };
+                push_obs(&mut inputs, 2, "mag", t, b, mag, 3e-3);
+            }
         }
     }
     inputs
@@ -109,14 +119,17 @@ fn scene(duration_ms: i64) -> Vec<Input> {
 const RUN_S: i64 = 30;
 
 /// An estimator fed the first 3 s, and the inputs of the following
-/// `RUN_S` seconds cut into 100 ms chunks (each closes one epoch).
-fn warmed(method: Method) -> (Estimator, Vec<Vec<Input>>) {
-    let inputs = scene(3_000 + RUN_S * 1_000);
+/// `RUN_S` seconds cut into 100 ms chunks (each closes one epoch);
+/// `verdicts`: whether solutions carry them (`serve` builds them only while
+/// a subscriber wants them).
+fn warmed(method: Method, dense: bool, verdicts: bool) -> (Estimator, Vec<Vec<Input>>) {
+    let inputs = scene(3_000 + RUN_S * 1_000, dense);
     let config = EstimatorConfig {
         method,
         ..EstimatorConfig::default()
     };
     let mut estimator = Estimator::new(config).unwrap();
+    estimator.set_verdicts(verdicts);
     let mut out = Vec::new();
     let mut chunks: Vec<Vec<Input>> = Vec::new();
     for input in inputs {
@@ -144,11 +157,23 @@ fn input_t(input: &Input) -> i64 {
 }
 
 fn bench_epoch(c: &mut Criterion) {
-    let mut group = c.benchmark_group("estimator_epoch_window200");
-    for method in [Method::Auto, Method::Ls] {
+    epoch_group(c, false);
+    epoch_group(c, true);
+}
+
+/// The epoch benches at 200 observations a window, or 2,000 when `dense` (a
+/// busy bench at 2,000 observations a second, the live latency's window).
+fn epoch_group(c: &mut Criterion, dense: bool) {
+    let window = if dense { 2000 } else { 200 };
+    let mut group = c.benchmark_group(format!("estimator_epoch_window{window}"));
+    for (method, verdicts) in [
+        (Method::Auto, true),
+        (Method::Auto, false),
+        (Method::Ls, true),
+    ] {
         // Check the setting once: every chunk closes exactly one epoch with a
-        // 200-observation window, warm after the first (`auto` stays `auto`).
-        let (mut probe, chunks) = warmed(method);
+        // full window, warm after the first (`auto` stays `auto`).
+        let (mut probe, chunks) = warmed(method, dense, verdicts);
         let mut out = Vec::new();
         for chunk in chunks.iter().take(20) {
             out.clear();
@@ -163,19 +188,24 @@ fn bench_epoch(c: &mut Criterion) {
                 })
                 .collect();
             assert_eq!(sols.len(), 1);
-            assert_eq!(sols[0].n, 200, "window size");
+            assert_eq!(sols[0].n, window, "window size");
             assert_eq!(sols[0].method, method.as_str());
+            assert_eq!(sols[0].verdicts.is_some(), verdicts);
         }
+        let name = match verdicts {
+            true => format!("epoch_{}", method.as_str()),
+            false => format!("epoch_{}_no_verdicts", method.as_str()),
+        };
         // Steady state: one estimator fed chunk after chunk, its buffers warm,
         // as in `serve`. Timed: the ingest of one chunk and dropping its outputs;
         // not timed: making a fresh warmed estimator when a run's chunks are used up.
-        group.bench_function(format!("epoch_{}", method.as_str()), |bench| {
+        group.bench_function(name, |bench| {
             bench.iter_custom(|iters| {
                 let mut total = Duration::ZERO;
                 let mut done = 0;
                 let mut out = Vec::with_capacity(8);
                 while done < iters {
-                    let (mut estimator, chunks) = warmed(method);
+                    let (mut estimator, chunks) = warmed(method, dense, verdicts);
                     for chunk in chunks.into_iter().take((iters - done) as usize) {
                         let start = Instant::now();
                         for input in chunk {
@@ -190,10 +220,10 @@ fn bench_epoch(c: &mut Criterion) {
             })
         });
     }
-    // A plain least-squares solve of the same 200 observations (unpropagated
+    // A plain least-squares solve of the same observations (unpropagated
     // vectors: the solve costs the same), beside the epochs.
-    let pairs = window_pairs();
-    assert_eq!(pairs.len(), 200);
+    let pairs = window_pairs(dense);
+    assert_eq!(pairs.len(), window as usize);
     let mut solver = Solver::new(SolveParams::default());
     group.bench_function("solve_ls_same_window", |bench| {
         bench.iter(|| solver.solve(black_box(&pairs), Method::Ls, None).unwrap())
@@ -202,8 +232,8 @@ fn bench_epoch(c: &mut Criterion) {
 }
 
 /// The pairs of the window the benched epoch (E = 3000 ms) solves: `E - 1 s < t <= E`.
-fn window_pairs() -> Vec<Pair> {
-    let inputs = scene(3_200);
+fn window_pairs(dense: bool) -> Vec<Pair> {
+    let inputs = scene(3_200, dense);
     let epoch = 3_000 * MS;
     inputs
         .iter()

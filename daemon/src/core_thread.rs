@@ -15,7 +15,8 @@
 //! the queue is drained; it then closes the current epoch with a final tick,
 //! closes the recording, and drops the feed, which tells subscribers.
 
-use std::sync::atomic::Ordering::Relaxed;
+use std::sync::atomic::AtomicU64;
+use std::sync::atomic::Ordering::{Relaxed, SeqCst};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
@@ -98,6 +99,44 @@ pub struct Published {
     pub full: Vec<u8>,
     /// The same solution without verdicts; `None` when `full` has none.
     pub lean: Option<Vec<u8>>,
+    /// Whether verdicts were built for the epoch this output came from. The
+    /// core builds them only while a subscriber wants them ([`VerdictDemand`]);
+    /// a solution too large for a frame with them goes without, but still
+    /// counts as built.
+    pub verdicts_built: bool,
+}
+
+/// How many subscribers want per-observation verdicts: the core builds and
+/// encodes them only while this is above zero (at 2,000 observations a
+/// window they are most of an epoch's encoding time).
+///
+/// A subscriber counts itself before it subscribes to the feed, and then skips
+/// the outputs at the head of its feed that were computed before the core saw
+/// it (`verdicts_built` false): it sees the feed as if it had joined a moment
+/// later, with verdicts in every solution.
+#[derive(Debug, Default)]
+pub struct VerdictDemand(AtomicU64);
+
+impl VerdictDemand {
+    /// Counts one subscriber that wants verdicts until the guard is dropped.
+    pub fn want(&self) -> VerdictWant<'_> {
+        self.0.fetch_add(1, SeqCst);
+        VerdictWant(&self.0)
+    }
+
+    fn any(&self) -> bool {
+        self.0.load(SeqCst) > 0
+    }
+}
+
+/// One subscriber's share of [`VerdictDemand`], given back on drop.
+#[derive(Debug)]
+pub struct VerdictWant<'d>(&'d AtomicU64);
+
+impl Drop for VerdictWant<'_> {
+    fn drop(&mut self) {
+        self.0.fetch_sub(1, SeqCst);
+    }
 }
 
 impl Published {
@@ -111,7 +150,8 @@ impl Published {
 
     /// Encodes `output`, moving it into the message (a solution is not
     /// cloned for its lean form: its verdicts are taken out and put back).
-    fn encode(output: Output) -> Published {
+    /// `verdicts_built`: whether the estimator was building verdicts.
+    pub fn encode(output: Output, verdicts_built: bool) -> Published {
         match output {
             Output::Solution(mut solution) => {
                 let t = solution.t;
@@ -122,6 +162,7 @@ impl Published {
                     return Published {
                         full: lean,
                         lean: None,
+                        verdicts_built,
                     };
                 };
                 solution.verdicts = Some(verdicts);
@@ -131,12 +172,14 @@ impl Published {
                     Ok(full) => Published {
                         full,
                         lean: Some(lean),
+                        verdicts_built,
                     },
                     Err(err) => {
                         tracing::warn!(t, %err, "solution sent without verdicts");
                         Published {
                             full: lean,
                             lean: None,
+                            verdicts_built,
                         }
                     }
                 }
@@ -144,6 +187,7 @@ impl Published {
             Output::Alert(alert) => Published {
                 full: encode_frame(&Message::Alert(alert)),
                 lean: None,
+                verdicts_built,
             },
         }
     }
@@ -165,6 +209,8 @@ pub struct CoreSetup {
     pub recorder: Option<LogWriter<std::fs::File>>,
     /// Token bytes to mask in recorded bytes.
     pub mask: Option<Vec<u8>>,
+    /// Subscribers wanting verdicts.
+    pub verdict_demand: Arc<VerdictDemand>,
 }
 
 /// What the core thread did, returned when it ends.
@@ -207,6 +253,9 @@ struct Core {
     counters: Arc<Counters>,
     feed: broadcast::Sender<Arc<Published>>,
     room: Arc<Notify>,
+    verdict_demand: Arc<VerdictDemand>,
+    /// Whether the estimator builds verdicts now (set before each input).
+    verdicts_on: bool,
     outputs: Vec<Output>,
     /// Bench time minus wall time (Unix ns) of the newest input, the mapping
     /// the live clock ticks use.
@@ -235,6 +284,8 @@ impl Core {
             counters,
             feed,
             room,
+            verdict_demand: setup.verdict_demand,
+            verdicts_on: true,
             outputs: Vec::new(),
             offset_ns: None,
             newest_t: i64::MIN,
@@ -309,6 +360,7 @@ impl Core {
             Input::Rate(rate) => Some(rate.seq),
             _ => None,
         };
+        self.follow_verdict_demand();
         if let Err(err) = self.estimator.ingest(input, &mut self.outputs) {
             bump(&self.counters.rejected);
             let sensor = err.sensor();
@@ -345,11 +397,20 @@ impl Core {
                 self.stop_recording(err.to_string());
             }
         }
+        self.follow_verdict_demand();
         // A tick is never refused; the result is ignored for that reason.
         let _ = self
             .estimator
             .ingest(Input::Tick(bench_ns), &mut self.outputs);
         self.publish();
+    }
+
+    fn follow_verdict_demand(&mut self) {
+        let on = self.verdict_demand.any();
+        if on != self.verdicts_on {
+            self.verdicts_on = on;
+            self.estimator.set_verdicts(on);
+        }
     }
 
     fn publish(&mut self) {
@@ -386,7 +447,8 @@ impl Core {
                 }
             }
             // No subscriber is not an error: the feed goes on.
-            let _ = self.feed.send(Arc::new(Published::encode(output)));
+            let published = Published::encode(output, self.verdicts_on);
+            let _ = self.feed.send(Arc::new(published));
         }
     }
 

@@ -168,11 +168,16 @@ fn unit_or_none(v: &Vector3<f64>) -> Option<Vector3<f64>> {
     if !(n2.is_finite() && n2 > 1e-300) {
         return None;
     }
-    if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
-        Some(*v)
+    // Dividing by exactly 1 keeps a unit vector bit for bit; the select
+    // instead of a branch matters because rotated vectors fall on either
+    // side of the test at random (a mispredicted branch per pair).
+    let norm = n2.sqrt();
+    let divisor = if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
+        1.0
     } else {
-        Some(v / n2.sqrt())
-    }
+        norm
+    };
+    Some(v / divisor)
 }
 
 /// Residual angle up to which the arcsine series is used, rad (half-chord 0.05).

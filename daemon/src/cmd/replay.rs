@@ -32,7 +32,6 @@ use wahbad::replay::{self, output, LogInput, ReplayError, ReplayRun, RunOptions,
 use wahbad::report::{self, aem::AemError, aem::AemOptions};
 use wahbad::serve::Counters;
 use wahbad::settings::{EstimatorFlags, ServeArgs, ServeConfig, TOKEN_ENV};
-use wahbad_protocol::{encode_frame, Message};
 
 use super::{bad_input, Failure};
 
@@ -295,23 +294,9 @@ fn extra_outputs(
     Ok(())
 }
 
-/// One output as the live server publishes it.
+/// One output as the live server publishes it (replays always build verdicts).
 fn published(output: &Output) -> Published {
-    match output {
-        Output::Solution(solution) => {
-            let full = encode_frame(&Message::Solution(solution.clone()));
-            let lean = solution.verdicts.as_ref().map(|_| {
-                let mut lean = solution.clone();
-                lean.verdicts = None;
-                encode_frame(&Message::Solution(lean))
-            });
-            Published { full, lean }
-        }
-        Output::Alert(alert) => Published {
-            full: encode_frame(&Message::Alert(alert.clone())),
-            lean: None,
-        },
-    }
+    Published::encode(output.clone(), true)
 }
 
 /// The replay on a blocking thread while the feed is served to subscribers.

@@ -36,7 +36,7 @@ use tokio::sync::{broadcast, watch, Semaphore};
 use tokio::task::JoinSet;
 use wahbad_protocol::{ErrorCode, PROTOCOL_VERSION};
 
-use crate::core_thread::{self, CoreReport, CoreSender, CoreSetup, Published};
+use crate::core_thread::{self, CoreReport, CoreSender, CoreSetup, Published, VerdictDemand};
 use crate::estimator::Estimator;
 use crate::record::{unix_now_ns, LogHeader, LogWriter};
 use crate::settings::ServeConfig;
@@ -86,6 +86,8 @@ pub(crate) struct Shared {
     counters: Arc<Counters>,
     /// A receiver kept only to make new ones; never read.
     feed_template: Mutex<broadcast::Receiver<Arc<Published>>>,
+    /// Subscribers wanting verdicts (read by the core thread).
+    verdict_demand: Arc<VerdictDemand>,
     server_name: String,
 }
 
@@ -129,6 +131,7 @@ pub async fn run(
     };
     let counters = Arc::new(Counters::default());
     let (feed, feed_template) = broadcast::channel(config.limits.subscriber_queue);
+    let verdict_demand = Arc::new(VerdictDemand::default());
     let setup = CoreSetup {
         estimator,
         period_ns: config.estimator.period_ms as i64 * 1_000_000,
@@ -137,6 +140,7 @@ pub async fn run(
         queue: config.limits.core_queue,
         recorder,
         mask: config.token.as_ref().map(|token| token.as_bytes().to_vec()),
+        verdict_demand: verdict_demand.clone(),
     };
     let (core, core_handle) = core_thread::spawn(setup, counters.clone(), feed)
         .map_err(|err| ServeError::Core(err.to_string()))?;
@@ -144,6 +148,7 @@ pub async fn run(
         config,
         counters: counters.clone(),
         feed_template: Mutex::new(feed_template),
+        verdict_demand,
         server_name: format!("wahbad {}", env!("CARGO_PKG_VERSION")),
     });
     let (stop_tx, stop_rx) = watch::channel(false);
@@ -245,6 +250,8 @@ pub async fn run_feed(
         config,
         counters,
         feed_template: Mutex::new(feed),
+        // A replay builds verdicts whatever its subscribers want.
+        verdict_demand: Arc::new(VerdictDemand::default()),
         server_name: format!("wahbad {} (replay)", env!("CARGO_PKG_VERSION")),
     });
     let (stop_tx, stop_rx) = watch::channel(false);

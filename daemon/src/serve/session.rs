@@ -312,13 +312,22 @@ async fn subscriber_loop<S: AsyncRead + AsyncWrite + Unpin>(
     peer: &str,
     verdicts: bool,
 ) {
+    // Counted before subscribing, so everything the core computes from now
+    // on carries verdicts; the outputs at the head of the feed computed before
+    // are skipped (see `VerdictDemand`).
+    let _want = verdicts.then(|| shared.verdict_demand.want());
     let mut feed = shared.subscribe();
+    let mut head = verdicts;
     let write_timeout = shared.config.limits.subscriber_timeout;
     loop {
         tokio::select! {
             published = feed.recv() => {
                 let written = match published {
-                    Ok(published) => timeout(write_timeout, conn.write_encoded(published.frame(verdicts))).await,
+                    Ok(published) if head && !published.verdicts_built => continue,
+                    Ok(published) => {
+                        head = false;
+                        timeout(write_timeout, conn.write_encoded(published.frame(verdicts))).await
+                    }
                     Err(broadcast::error::RecvError::Lagged(skipped)) => {
                         shared.counters.lagged_skipped.fetch_add(skipped, std::sync::atomic::Ordering::Relaxed);
                         tracing::debug!(peer, skipped, "subscriber lagging: oldest messages dropped");

@@ -317,12 +317,15 @@ fn unit(v: &Vector3<f64>) -> Result<Vector3<f64>, &'static str> {
     if n2 < 1e-300 {
         return Err("zero vector");
     }
-    // Already unit to rounding: keep it bit-for-bit.
-    if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
-        Ok(*v)
+    // Already unit to rounding: kept bit for bit (divided by exactly 1), by a
+    // select rather than a branch, which rotated vectors mispredict.
+    let norm = n2.sqrt();
+    let divisor = if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
+        1.0
     } else {
-        Ok(v / n2.sqrt())
-    }
+        norm
+    };
+    Ok(v / divisor)
 }
 
 /// A rotation estimate inside the solvers, before conversion to a quaternion.
