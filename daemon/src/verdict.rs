@@ -3,7 +3,9 @@
 //! - Residual of pair `i`: the angle between `b_i` and `A r_i`,
 //!   `θ_i = 2 asin(‖b_i − A r_i‖/2)` by series for small angles,
 //!   `atan2(|b_i × A r_i|, b_i · A r_i)` beyond (accurate at all angles).
-//! - Inlier: `θ_i ≤ k σ_i` (χ² gate, 2 dof; `k = √13.8155` at 99.9 %).
+//! - Inlier: `θ_i ≤ k σ_i` (χ² gate, 2 dof; `k = √13.8155` at 99.9 %),
+//!   tested in its chord form `‖b_i − A r_i‖² ≤ (2 sin(k σ_i / 2))²` (the
+//!   same set, and no angle needed when the residuals are not wanted).
 //! - Covariance (QUEST measurement model, Shuster & Oh 1981):
 //!   `P = F⁻¹`, `F = Σ_inliers σ_i⁻² (I − b_i b_iᵀ)`, body frame, for the
 //!   error `A_true ≈ (I − [δθ×]) A_est`.
@@ -83,48 +85,70 @@ impl Default for Verdict {
 /// Judges `q` against `pairs` with gate multiplier `gate_k`.
 pub fn assess(pairs: &[Pair], q: &UnitQuaternion<f64>, gate_k: f64) -> Verdict {
     let mut v = Verdict::default();
-    assess_into(&mut v, pairs, q, gate_k);
+    assess_into(&mut v, pairs, q, gate_k, true);
     v
 }
 
 /// [`assess`] into an existing verdict, reusing its vectors (no allocation
-/// once they have grown to the window size).
-pub fn assess_into(v: &mut Verdict, pairs: &[Pair], q: &UnitQuaternion<f64>, gate_k: f64) {
+/// once they have grown to the window size). Without `residuals` the
+/// residual angles are not computed and `v.residuals` is left empty; the
+/// flags, covariance and observability are the same either way.
+pub fn assess_into(
+    v: &mut Verdict,
+    pairs: &[Pair],
+    q: &UnitQuaternion<f64>,
+    gate_k: f64,
+    residuals: bool,
+) {
     let a = q.to_rotation_matrix().into_inner();
     v.residuals.clear();
     v.inliers.clear();
-    // Three passes, for speed only: squared chords (or a negative mark for an
-    // invalid pair); chords to angles, a branch-free loop the compiler runs
-    // two or four pairs wide, with the rare large angles redone after; gates
-    // and sums. Each pair's arithmetic is that of a single loop.
-    v.residuals
-        .extend(pairs.iter().map(|p| match checked_unit_pair(p) {
-            Some((b, r)) => (b - a * r).norm_squared(),
-            None => INVALID_CHORD2,
-        }));
-    for theta in v.residuals.iter_mut() {
-        *theta = small_angle_of_chord2(*theta);
-    }
-    for (theta, p) in v.residuals.iter_mut().zip(pairs) {
-        if theta.is_nan() || *theta > SERIES_MAX_ANGLE {
-            *theta = match checked_unit_pair(p) {
-                Some((b, r)) => large_angle(&b, &(a * r)),
-                None => std::f64::consts::PI,
-            };
-        }
-    }
+    // One pass for the gates and sums, in the chord form of the gate:
+    // θ ≤ kσ ⇔ ‖b − A r‖² ≤ (2 sin(kσ/2))² for kσ < π (any θ passes beyond).
+    // The squared chords are kept for the angles, which only the
+    // per-observation verdicts need.
     let (mut info, mut geometry) = (Spread::default(), Spread::default());
     let mut n_inliers = 0;
-    for (&theta, p) in v.residuals.iter().zip(pairs) {
-        let unit_pair = (theta <= gate_k * p.sigma)
-            .then(|| checked_unit_pair(p))
-            .flatten();
-        v.inliers.push(unit_pair.is_some());
-        if let Some((b, r)) = unit_pair {
+    let (mut last_sigma, mut last_gate) = (f64::NAN, 0.0);
+    for p in pairs {
+        let Some((b, r)) = checked_unit_pair(p) else {
+            v.inliers.push(false);
+            if residuals {
+                v.residuals.push(INVALID_CHORD2);
+            }
+            continue;
+        };
+        let chord2 = (b - a * r).norm_squared();
+        if residuals {
+            v.residuals.push(chord2);
+        }
+        // Consecutive pairs of one sensor often share σ.
+        if p.sigma != last_sigma {
+            last_sigma = p.sigma;
+            last_gate = gate_of(gate_k * p.sigma);
+        }
+        let inlier = chord2 <= last_gate;
+        v.inliers.push(inlier);
+        if inlier {
             n_inliers += 1;
             let w = 1.0 / (p.sigma * p.sigma);
             info.add(w, &b);
             geometry.add(w, &r);
+        }
+    }
+    if residuals {
+        // Chords to angles: a branch-free loop the compiler runs two or four
+        // pairs wide, with the rare large angles redone after.
+        for theta in v.residuals.iter_mut() {
+            *theta = small_angle_of_chord2(*theta);
+        }
+        for (theta, p) in v.residuals.iter_mut().zip(pairs) {
+            if theta.is_nan() || *theta > SERIES_MAX_ANGLE {
+                *theta = match checked_unit_pair(p) {
+                    Some((b, r)) => large_angle(&b, &(a * r)),
+                    None => std::f64::consts::PI,
+                };
+            }
         }
     }
     let (info, geometry) = (info.projector_sum(), geometry.projector_sum());
@@ -147,6 +171,17 @@ pub fn assess_into(v: &mut Verdict, pairs: &[Pair], q: &UnitQuaternion<f64>, gat
     }
     v.covariance = covariance;
     v.observability = observability;
+}
+
+/// The squared-chord gate of angle `k σ`; infinite from `π` on, where every
+/// angle passes (NaN for a NaN argument, which no chord passes).
+#[inline]
+fn gate_of(angle: f64) -> f64 {
+    if angle >= std::f64::consts::PI {
+        f64::INFINITY
+    } else {
+        crate::solve::gate_chord2(angle)
+    }
 }
 
 /// The pair's vectors at unit length, or `None` when a vector is zero or not
@@ -411,6 +446,51 @@ mod tests {
         let v = assess(&[bad], &UnitQuaternion::identity(), 3.0);
         assert_eq!(v.residuals, vec![std::f64::consts::PI]);
         assert_eq!(v.inliers, vec![false]);
+    }
+
+    #[test]
+    fn chord_gate_picks_the_angle_gate_set_with_or_without_residuals() {
+        // Pairs at residual angles spread around their gate kσ (from 0.2 kσ to
+        // 5 kσ, none within 1e-9 of it), several σ, a few invalid pairs: the
+        // flags must be those of θ ≤ kσ on the atan2 angle, and the verdict
+        // the same whether or not the angles are computed.
+        let q = UnitQuaternion::from_scaled_axis(Vector3::new(0.4, -0.3, 0.9));
+        let k = 13.8155f64.sqrt();
+        let mut pairs = Vec::new();
+        let mut want = Vec::new();
+        for i in 0..600 {
+            let x = i as f64;
+            let r = Vector3::new((0.37 * x).sin(), (0.71 * x).cos(), (0.13 * x).sin() + 0.3)
+                .normalize();
+            let sigma = [1e-4, 1e-3, 3e-2, 0.5][i % 4];
+            let ratio = 0.2 + 4.8 * ((0.618 * x).fract());
+            let angle = (ratio * k * sigma).min(3.0);
+            let axis = r.cross(&Vector3::new(0.3, 0.1, -0.9)).normalize();
+            let b = q * (UnitQuaternion::from_scaled_axis(axis * angle) * r);
+            let reference = b.cross(&(q * r)).norm().atan2(b.dot(&(q * r)));
+            if (reference - k * sigma).abs() < 1e-9 {
+                continue;
+            }
+            want.push(reference <= k * sigma);
+            pairs.push(Pair { b, r, sigma });
+        }
+        pairs.push(Pair {
+            b: Vector3::zeros(),
+            r: Vector3::x(),
+            sigma: 1e-3,
+        });
+        want.push(false);
+        let with = assess(&pairs, &q, k);
+        let mut without = Verdict::default();
+        assess_into(&mut without, &pairs, &q, k, false);
+        assert_eq!(with.inliers, want);
+        assert!(want.iter().filter(|&&w| w).count() > 100);
+        assert!(want.iter().filter(|&&w| !w).count() > 100);
+        assert!(without.residuals.is_empty());
+        assert_eq!(without.inliers, with.inliers);
+        assert_eq!(without.covariance, with.covariance);
+        assert_eq!(without.observability, with.observability);
+        assert_eq!(with.residuals.len(), pairs.len());
     }
 
     #[test]

@@ -628,8 +628,7 @@ impl Estimator {
         let arw2 = self.config.gyro_arw * self.config.gyro_arw;
         let to_epoch = propagated.then(|| self.rates.anchored(epoch).to_rotation_matrix());
         let (generation, settled_before) = (self.rates.generation(), self.rates.settled_before());
-        for obs_idx in range.clone() {
-            let obs = self.obs.get_mut(obs_idx);
+        for obs in self.obs.iter_range_mut(range.clone()) {
             let (b, sigma) = match &to_epoch {
                 Some(k_epoch) => {
                     if obs.anchored_gen != generation {
@@ -652,7 +651,6 @@ impl Estimator {
                 }
                 None => (obs.b, obs.sigma),
             };
-            let obs = self.obs.get(obs_idx);
             self.pairs.push(Pair { b, r: obs.r, sigma });
             self.counts[obs.sensor_idx as usize].0 += 1;
         }
@@ -681,9 +679,18 @@ impl Estimator {
         let configured_method = self.config.method;
         let level = self.config.alerts.inlier_fraction.level;
         let huge = Matrix3::identity() * UNOBSERVABLE_VARIANCE;
+        // Residual angles are for the verdicts only.
+        let residuals = self.emit_verdicts;
+        let mut aged = false;
         // (status, q, cov, method, iterations, independent inlier directions)
-        let (status, q, cov, method, iterations, directions) = if n < 2 {
-            assess_into(&mut self.verdict, &self.pairs, &fallback_q, gate_k);
+        let (status, q, mut cov, method, iterations, directions) = if n < 2 {
+            assess_into(
+                &mut self.verdict,
+                &self.pairs,
+                &fallback_q,
+                gate_k,
+                residuals,
+            );
             let directions = n as f64;
             (
                 SolutionStatus::Insufficient,
@@ -699,7 +706,13 @@ impl Estimator {
                 .solve(&self.pairs, configured_method, warm.as_ref())
             {
                 Ok(outcome) => {
-                    assess_into(&mut self.verdict, &self.pairs, &outcome.q, gate_k);
+                    assess_into(
+                        &mut self.verdict,
+                        &self.pairs,
+                        &outcome.q,
+                        gate_k,
+                        residuals,
+                    );
                     let verdict = &self.verdict;
                     let (method, iterations) = (outcome.method.as_str(), outcome.iterations);
                     match verdict.observability {
@@ -709,21 +722,13 @@ impl Estimator {
                             } else {
                                 SolutionStatus::Ok
                             };
-                            let common = if propagated {
-                                let times = range.clone().map(|i| self.obs.get(i).t);
-                                arw2 * mean_inlier_age_s(
-                                    &self.pairs,
-                                    &verdict.inliers,
-                                    times,
-                                    epoch,
-                                )
-                            } else {
-                                0.0
-                            };
+                            // The gyro's common drift is added below, with
+                            // the inliers' mean age (see `InlierAge`).
+                            aged = propagated;
                             (
                                 status,
                                 outcome.q,
-                                verdict.covariance + Matrix3::identity() * common,
+                                verdict.covariance,
                                 method,
                                 iterations,
                                 2.0,
@@ -748,7 +753,13 @@ impl Estimator {
                     }
                 }
                 Err(err) => {
-                    assess_into(&mut self.verdict, &self.pairs, &fallback_q, gate_k);
+                    assess_into(
+                        &mut self.verdict,
+                        &self.pairs,
+                        &fallback_q,
+                        gate_k,
+                        residuals,
+                    );
                     let status = match err {
                         SolveError::Insufficient { .. } => SolutionStatus::Insufficient,
                         _ => SolutionStatus::Unobservable,
@@ -764,13 +775,19 @@ impl Estimator {
             q: if solved { q } else { fallback_q },
         });
 
-        // Verdicts and per-sensor counts.
+        // Verdicts, per-sensor counts and the inliers' mean age, in one pass.
         let mut verdicts = Vec::with_capacity(if self.emit_verdicts { n } else { 0 });
-        for (pair_idx, obs_idx) in range.enumerate() {
-            let obs = self.obs.get(obs_idx);
-            let inlier = self.verdict.inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
+        let mut age = InlierAge::default();
+        let inliers = &self.verdict.inliers;
+        // `aged` only after a successful solve of these pairs, whose σ⁻² the solver kept.
+        let inv_var = self.solver.inverse_variances();
+        for (pair_idx, obs) in self.obs.iter_range(range).enumerate() {
+            let inlier = inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
             if inlier {
                 self.counts[obs.sensor_idx as usize].1 += 1;
+                if aged {
+                    age.add(inv_var[pair_idx], epoch - obs.t);
+                }
             }
             if self.emit_verdicts {
                 verdicts.push(ObsVerdict {
@@ -780,6 +797,9 @@ impl Estimator {
                     inlier,
                 });
             }
+        }
+        if aged {
+            cov += Matrix3::identity() * (arw2 * age.mean_s());
         }
         let n_inliers: u32 = self.counts.iter().map(|c| c.1).sum();
         let inlier_fraction = n_inliers as f64 / n as f64;
@@ -915,26 +935,28 @@ fn alert(
     })
 }
 
-/// Information-weighted mean age of the inliers at `epoch`, seconds:
-/// `Σ σ_i⁻² (E − t_i) / Σ σ_i⁻²` over the pairs flagged inlier (`times` in pair order).
-fn mean_inlier_age_s(
-    pairs: &[Pair],
-    inliers: &[bool],
-    times: impl Iterator<Item = i64>,
-    epoch: i64,
-) -> f64 {
-    let (mut weighted, mut total) = (0.0, 0.0);
-    for ((pair, &inlier), t) in pairs.iter().zip(inliers).zip(times) {
-        if inlier {
-            let w = 1.0 / (pair.sigma * pair.sigma);
-            weighted += w * (epoch - t) as f64 / NS_PER_S;
-            total += w;
-        }
+/// Information-weighted mean age of the inliers at the epoch, seconds:
+/// `Σ σ_i⁻² (E − t_i) / Σ σ_i⁻²` over the pairs added (0 with none).
+#[derive(Debug, Clone, Copy, Default)]
+struct InlierAge {
+    weighted: f64,
+    total: f64,
+}
+
+impl InlierAge {
+    /// Adds a pair of weight `w = σ⁻²` (propagated σ) measured `age_ns` before the epoch.
+    #[inline]
+    fn add(&mut self, w: f64, age_ns: i64) {
+        self.weighted += w * age_ns as f64 / NS_PER_S;
+        self.total += w;
     }
-    if total > 0.0 {
-        weighted / total
-    } else {
-        0.0
+
+    fn mean_s(&self) -> f64 {
+        if self.total > 0.0 {
+            self.weighted / self.total
+        } else {
+            0.0
+        }
     }
 }
 
@@ -944,23 +966,15 @@ mod tests {
     use nalgebra::Vector3;
 
     #[test]
-    fn mean_inlier_age_weights_by_information_and_skips_outliers() {
+    fn inlier_age_weights_by_information() {
         // Derived in the test: σ = 1 at age 1 s and σ = 2 at age 2 s give
-        // weights 1 and 1/4, so (1·1 + 0.25·2) / 1.25 = 1.2 s; the outlier
-        // (age 10 s) does not count.
-        let pair = |sigma| Pair {
-            b: Vector3::x(),
-            r: Vector3::x(),
-            sigma,
-        };
-        let pairs = [pair(1.0), pair(2.0), pair(1.0)];
-        let epoch = 10_000_000_000;
-        let times = [9_000_000_000, 8_000_000_000, 0];
-        let age = mean_inlier_age_s(&pairs, &[true, true, false], times.into_iter(), epoch);
-        assert!((age - 1.2).abs() < 1e-12, "{age}");
-        assert_eq!(
-            mean_inlier_age_s(&pairs, &[false; 3], times.into_iter(), epoch),
-            0.0
-        );
+        // weights 1 and 1/4, so (1·1 + 0.25·2) / 1.25 = 1.2 s; outliers are
+        // never added (the epoch's loop adds inliers only).
+        let mut age = InlierAge::default();
+        assert_eq!(age.mean_s(), 0.0, "no inliers");
+        age.add(1.0, 1_000_000_000);
+        age.add(0.25, 2_000_000_000);
+        let mean = age.mean_s();
+        assert!((mean - 1.2).abs() < 1e-12, "{mean}");
     }
 }

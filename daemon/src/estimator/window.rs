@@ -65,6 +65,19 @@ impl ObsBuffer {
         &mut self.obs[idx]
     }
 
+    /// The observations of an index range, in time order.
+    pub fn iter_range(&self, range: std::ops::Range<usize>) -> impl Iterator<Item = &BufferedObs> {
+        self.obs.range(range)
+    }
+
+    /// The observations of an index range, to update their cached propagation.
+    pub fn iter_range_mut(
+        &mut self,
+        range: std::ops::Range<usize>,
+    ) -> impl Iterator<Item = &mut BufferedObs> {
+        self.obs.range_mut(range)
+    }
+
     /// Time of the oldest observation held.
     pub fn first_t(&self) -> Option<i64> {
         self.obs.front().map(|o| o.t)
@@ -73,8 +86,13 @@ impl ObsBuffer {
     /// Inserts in time order; when more than `capacity` are then held, drops the
     /// oldest and returns true.
     pub fn insert(&mut self, obs: BufferedObs, capacity: usize) -> bool {
-        let at = self.obs.partition_point(|o| o.t <= obs.t);
-        self.obs.insert(at, obs);
+        // Most observations come in time order: no search for those.
+        if self.obs.back().is_none_or(|last| last.t <= obs.t) {
+            self.obs.push_back(obs);
+        } else {
+            let at = self.obs.partition_point(|o| o.t <= obs.t);
+            self.obs.insert(at, obs);
+        }
         if self.obs.len() > capacity {
             self.obs.pop_front();
             return true;

@@ -292,7 +292,7 @@ const GATE_SERIES_MAX: f64 = 0.2;
 /// Taylor series to the `g¹²` term is exact to rounding (the first term left
 /// out is below `g¹⁴/14·13·…` ≈ 1e-19 relative) and costs less than a `sin`.
 #[inline]
-fn gate_chord2(g: f64) -> f64 {
+pub(crate) fn gate_chord2(g: f64) -> f64 {
     if g > GATE_SERIES_MAX {
         return (2.0 * (0.5 * g).sin()).powi(2);
     }
@@ -369,6 +369,12 @@ impl Solver {
     /// the pairs of the final refit and 0 for rejected pairs.
     pub fn weights(&self) -> &[f64] {
         &self.weights
+    }
+
+    /// `σ_i⁻²` of the pairs of the last solve that got past validation
+    /// (`1 / (σ_i σ_i)`, computed once per solve).
+    pub fn inverse_variances(&self) -> &[f64] {
+        &self.ws.inv_var
     }
 
     /// Solves Wahba's problem for `pairs` with `method`, optionally warm-started.
