@@ -187,6 +187,7 @@ fn live_run(rate: f64, duration_s: f64, verdicts: bool, sample_s: f64) -> anyhow
     let started = Instant::now();
     let mut rss_kb = Vec::new();
     let cpu0 = proc_cpu_s(serve_pid);
+    let steal0 = host_steal_s();
     loop {
         if gen.0.try_wait()?.is_some() {
             break;
@@ -198,6 +199,10 @@ fn live_run(rate: f64, duration_s: f64, verdicts: bool, sample_s: f64) -> anyhow
     }
     let wall_s = started.elapsed().as_secs_f64();
     let cpu_s = match (cpu0, proc_cpu_s(serve_pid)) {
+        (Some(a), Some(b)) => Some(b - a),
+        _ => None,
+    };
+    let steal_s = match (steal0, host_steal_s()) {
         (Some(a), Some(b)) => Some(b - a),
         _ => None,
     };
@@ -233,7 +238,19 @@ fn live_run(rate: f64, duration_s: f64, verdicts: bool, sample_s: f64) -> anyhow
             "cpu_s": cpu_s,
             "cpu_share_of_wall": cpu_s.map(|c| c / wall_s),
         },
+        // CPU time the hypervisor gave to others while this machine's CPUs
+        // wanted it, summed over CPUs: latency tails follow it on shared hosts.
+        "host_steal_s": steal_s,
     }))
+}
+
+/// Steal time of all CPUs so far, s (`/proc/stat`, 8th value of the `cpu`
+/// line, ticks of 100 Hz assumed); `None` where there is no such file.
+fn host_steal_s() -> Option<f64> {
+    let text = std::fs::read_to_string("/proc/stat").ok()?;
+    let line = text.lines().find(|l| l.starts_with("cpu "))?;
+    let ticks: f64 = line.split_whitespace().nth(8)?.parse().ok()?;
+    Some(ticks / 100.0)
 }
 
 /// A `kB` line of `/proc/PID/status`.
