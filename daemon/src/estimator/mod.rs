@@ -963,7 +963,6 @@ impl InlierAge {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use nalgebra::Vector3;
 
     #[test]
     fn inlier_age_weights_by_information() {
