@@ -85,7 +85,7 @@ impl Default for Verdict {
 /// Judges `q` against `pairs` with gate multiplier `gate_k`.
 pub fn assess(pairs: &[Pair], q: &UnitQuaternion<f64>, gate_k: f64) -> Verdict {
     let mut v = Verdict::default();
-    assess_into(&mut v, pairs, q, gate_k, true);
+    assess_into(&mut v, pairs, q, gate_k, true, None);
     v
 }
 
@@ -93,13 +93,20 @@ pub fn assess(pairs: &[Pair], q: &UnitQuaternion<f64>, gate_k: f64) -> Verdict {
 /// once they have grown to the window size). Without `residuals` the
 /// residual angles are not computed and `v.residuals` is left empty; the
 /// flags, covariance and observability are the same either way.
+///
+/// `solver_gates`: the squared-chord gates a [`crate::Solver`] computed for
+/// these very pairs and this `gate_k` ([`crate::Solver::gate_chord2s`]),
+/// to save computing them again; the same numbers (the solver caps the
+/// angle at `π`, which here means every angle passes).
 pub fn assess_into(
     v: &mut Verdict,
     pairs: &[Pair],
     q: &UnitQuaternion<f64>,
     gate_k: f64,
     residuals: bool,
+    solver_gates: Option<&[f64]>,
 ) {
+    let solver_gates = solver_gates.filter(|g| g.len() == pairs.len());
     let a = q.to_rotation_matrix().into_inner();
     v.residuals.clear();
     v.inliers.clear();
@@ -110,7 +117,7 @@ pub fn assess_into(
     let (mut info, mut geometry) = (Spread::default(), Spread::default());
     let mut n_inliers = 0;
     let (mut last_sigma, mut last_gate) = (f64::NAN, 0.0);
-    for p in pairs {
+    for (i, p) in pairs.iter().enumerate() {
         let Some((b, r)) = checked_unit_pair(p) else {
             v.inliers.push(false);
             if residuals {
@@ -122,10 +129,21 @@ pub fn assess_into(
         if residuals {
             v.residuals.push(chord2);
         }
-        // Consecutive pairs of one sensor often share σ.
-        if p.sigma != last_sigma {
-            last_sigma = p.sigma;
-            last_gate = gate_of(gate_k * p.sigma);
+        match solver_gates {
+            // A chord is at most 2: a gate of 4 or more passes every pair.
+            Some(gates) => {
+                last_gate = if gates[i] >= 4.0 {
+                    f64::INFINITY
+                } else {
+                    gates[i]
+                }
+            }
+            // Consecutive pairs of one sensor often share σ.
+            None if p.sigma != last_sigma => {
+                last_sigma = p.sigma;
+                last_gate = gate_of(gate_k * p.sigma);
+            }
+            None => {}
         }
         let inlier = chord2 <= last_gate;
         v.inliers.push(inlier);
@@ -482,7 +500,7 @@ mod tests {
         want.push(false);
         let with = assess(&pairs, &q, k);
         let mut without = Verdict::default();
-        assess_into(&mut without, &pairs, &q, k, false);
+        assess_into(&mut without, &pairs, &q, k, false, None);
         assert_eq!(with.inliers, want);
         assert!(want.iter().filter(|&&w| w).count() > 100);
         assert!(want.iter().filter(|&&w| !w).count() > 100);
@@ -491,6 +509,16 @@ mod tests {
         assert_eq!(without.covariance, with.covariance);
         assert_eq!(without.observability, with.observability);
         assert_eq!(with.residuals.len(), pairs.len());
+        // The solver's own gates of the valid pairs give the same verdict.
+        let valid = &pairs[..pairs.len() - 1];
+        let mut solver = crate::Solver::new(crate::SolveParams {
+            gate_k: k,
+            ..crate::SolveParams::default()
+        });
+        solver.solve(valid, crate::Method::Ls, None).unwrap();
+        let mut reused = Verdict::default();
+        assess_into(&mut reused, valid, &q, k, true, Some(solver.gate_chord2s()));
+        assert_eq!(reused, assess(valid, &q, k));
     }
 
     #[test]

@@ -690,6 +690,7 @@ impl Estimator {
                 &fallback_q,
                 gate_k,
                 residuals,
+                None,
             );
             let directions = n as f64;
             (
@@ -712,6 +713,7 @@ impl Estimator {
                         &outcome.q,
                         gate_k,
                         residuals,
+                        Some(self.solver.gate_chord2s()),
                     );
                     let verdict = &self.verdict;
                     let (method, iterations) = (outcome.method.as_str(), outcome.iterations);
@@ -759,6 +761,7 @@ impl Estimator {
                         &fallback_q,
                         gate_k,
                         residuals,
+                        None,
                     );
                     let status = match err {
                         SolveError::Insufficient { .. } => SolutionStatus::Insufficient,

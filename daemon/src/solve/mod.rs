@@ -386,6 +386,12 @@ impl Solver {
         &self.ws.inv_var
     }
 
+    /// Squared-chord gates `(2 sin(min(k σ_i, π)/2))²` of the pairs of the
+    /// last solve that got past validation (see [`crate::verdict::assess_into`]).
+    pub fn gate_chord2s(&self) -> &[f64] {
+        &self.ws.gate_chord2
+    }
+
     /// Solves Wahba's problem for `pairs` with `method`, optionally warm-started.
     ///
     /// The warm start is used by `lud` and `gnc-tls` (initial estimate), by
