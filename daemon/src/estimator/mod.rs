@@ -681,6 +681,9 @@ impl Estimator {
         let huge = Matrix3::identity() * UNOBSERVABLE_VARIANCE;
         // Residual angles are for the verdicts only.
         let residuals = self.emit_verdicts;
+        // A full solve gets the gyro's common drift added to its covariance
+        // (zero without propagation, added all the same: `+ 0` turns `-0` into `0`).
+        let mut full = false;
         let mut aged = false;
         // (status, q, cov, method, iterations, independent inlier directions)
         let (status, q, mut cov, method, iterations, directions) = if n < 2 {
@@ -726,6 +729,7 @@ impl Estimator {
                             };
                             // The gyro's common drift is added below, with
                             // the inliers' mean age (see `InlierAge`).
+                            full = true;
                             aged = propagated;
                             (
                                 status,
@@ -801,8 +805,9 @@ impl Estimator {
                 });
             }
         }
-        if aged {
-            cov += Matrix3::identity() * (arw2 * age.mean_s());
+        if full {
+            let common = if aged { arw2 * age.mean_s() } else { 0.0 };
+            cov += Matrix3::identity() * common;
         }
         let n_inliers: u32 = self.counts.iter().map(|c| c.1).sum();
         let inlier_fraction = n_inliers as f64 / n as f64;
