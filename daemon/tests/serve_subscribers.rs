@@ -3,12 +3,10 @@
 
 mod serve_support;
 
-use std::sync::atomic::{AtomicBool, Ordering};
-use std::sync::Arc;
 use std::time::{Duration, Instant};
 
-use serve_support::{scene, Client, Daemon};
-use wahbad_protocol::{encode_frame, Message, Role, Status};
+use serve_support::{Client, Daemon, SceneSource};
+use wahbad_protocol::{Message, Role, Status};
 
 #[test]
 fn a_stalled_subscriber_neither_delays_others_nor_stays_connected() {
@@ -46,26 +44,7 @@ fn a_stalled_subscriber_neither_delays_others_nor_stays_connected() {
     // Bench time is this test's clock since `start`, so a solution's delay is
     // its arrival time minus the moment its epoch could close (E + L).
     let start = Instant::now();
-    let stop = Arc::new(AtomicBool::new(false));
-    let mut source = Client::tcp(daemon.tcp);
-    assert!(matches!(
-        source.hello(Role::Source, None),
-        Message::Welcome(_)
-    ));
-    let source_stop = stop.clone();
-    let source_thread = std::thread::spawn(move || {
-        let mut frame = 0;
-        while !source_stop.load(Ordering::Relaxed) {
-            let t = start.elapsed().as_nanos() as i64;
-            for msg in scene(frame, t) {
-                if std::io::Write::write_all(&mut source.stream, &encode_frame(&msg)).is_err() {
-                    return;
-                }
-            }
-            frame += 1;
-            std::thread::sleep(Duration::from_millis(10));
-        }
-    });
+    let source = SceneSource::start(daemon.tcp, start, Duration::from_millis(10));
 
     // Delays while the stalled subscriber is connected, and after (the control).
     let mut delays_ms = Vec::new();
@@ -107,9 +86,9 @@ fn a_stalled_subscriber_neither_delays_others_nor_stays_connected() {
             last_status = Instant::now();
         }
     }
-    stop.store(true, Ordering::Relaxed);
+    source.signal();
     let (status, stderr) = daemon.stop();
-    source_thread.join().unwrap();
+    source.stop();
     assert!(status.success(), "{stderr}");
     assert!(
         stderr.contains("subscriber disconnected: it stopped reading"),

@@ -5,12 +5,10 @@
 
 mod serve_support;
 
-use std::sync::atomic::{AtomicBool, Ordering};
-use std::sync::Arc;
 use std::time::{Duration, Instant};
 
-use serve_support::{scene, Client, Daemon};
-use wahbad_protocol::{encode_frame, Message, Role, Solution};
+use serve_support::{Client, Daemon, SceneSource};
+use wahbad_protocol::{Message, Role, Solution};
 
 fn subscriber(daemon: &Daemon, verdicts: Option<bool>) -> Client<std::net::TcpStream> {
     let mut client = Client::tcp(daemon.tcp);
@@ -54,27 +52,7 @@ fn verdicts_follow_what_subscribers_ask_for() {
     let mut daemon = Daemon::start(&["--period-ms", "10", "--span-ms", "200", "--latency-ms", "5"]);
     let mut lean = subscriber(&daemon, Some(false));
 
-    let start = Instant::now();
-    let stop = Arc::new(AtomicBool::new(false));
-    let mut source = Client::tcp(daemon.tcp);
-    assert!(matches!(
-        source.hello(Role::Source, None),
-        Message::Welcome(_)
-    ));
-    let source_stop = stop.clone();
-    let source_thread = std::thread::spawn(move || {
-        let mut frame = 0;
-        while !source_stop.load(Ordering::Relaxed) {
-            let t = start.elapsed().as_nanos() as i64;
-            for msg in scene(frame, t) {
-                if std::io::Write::write_all(&mut source.stream, &encode_frame(&msg)).is_err() {
-                    return;
-                }
-            }
-            frame += 1;
-            std::thread::sleep(Duration::from_millis(2));
-        }
-    });
+    let source = SceneSource::start(daemon.tcp, Instant::now(), Duration::from_millis(2));
 
     // Nobody wants verdicts yet.
     for s in solutions(&mut lean, 20) {
@@ -104,8 +82,7 @@ fn verdicts_follow_what_subscribers_ask_for() {
         .iter()
         .for_each(assert_has_verdicts);
 
-    stop.store(true, Ordering::Relaxed);
-    source_thread.join().unwrap();
+    source.stop();
     let (status, _) = daemon.stop();
     assert!(status.success());
 }

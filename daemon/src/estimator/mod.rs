@@ -687,14 +687,7 @@ impl Estimator {
         let mut aged = false;
         // (status, q, cov, method, iterations, independent inlier directions)
         let (status, q, mut cov, method, iterations, directions) = if n < 2 {
-            assess_into(
-                &mut self.verdict,
-                &self.pairs,
-                &fallback_q,
-                gate_k,
-                residuals,
-                None,
-            );
+            self.assess_unsolved(&fallback_q, gate_k, residuals);
             let directions = n as f64;
             (
                 SolutionStatus::Insufficient,
@@ -759,14 +752,7 @@ impl Estimator {
                     }
                 }
                 Err(err) => {
-                    assess_into(
-                        &mut self.verdict,
-                        &self.pairs,
-                        &fallback_q,
-                        gate_k,
-                        residuals,
-                        None,
-                    );
+                    self.assess_unsolved(&fallback_q, gate_k, residuals);
                     let status = match err {
                         SolveError::Insufficient { .. } => SolutionStatus::Insufficient,
                         _ => SolutionStatus::Unobservable,
@@ -839,6 +825,11 @@ impl Estimator {
         }));
         self.stats.epochs += 1;
         self.judge_epoch_alerts(epoch, status, inlier_fraction, directions, out);
+    }
+
+    /// The verdict of the fallback attitude when no solve gave one (no solver gates).
+    fn assess_unsolved(&mut self, q: &UnitQuaternion<f64>, gate_k: f64, residuals: bool) {
+        assess_into(&mut self.verdict, &self.pairs, q, gate_k, residuals, None);
     }
 
     fn judge_epoch_alerts(

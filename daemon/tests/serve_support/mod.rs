@@ -293,6 +293,56 @@ pub fn scene(frame: u64, t: i64) -> Vec<Message> {
         .collect()
 }
 
+/// A source connection streaming `scene` frames (data time: `start.elapsed()`)
+/// every `interval` on its own thread until [`SceneSource::stop`].
+pub struct SceneSource {
+    stop: std::sync::Arc<std::sync::atomic::AtomicBool>,
+    thread: Option<std::thread::JoinHandle<()>>,
+}
+
+impl SceneSource {
+    pub fn start(addr: SocketAddr, start: Instant, interval: Duration) -> SceneSource {
+        use std::sync::atomic::{AtomicBool, Ordering};
+        let stop = std::sync::Arc::new(AtomicBool::new(false));
+        let mut source = Client::tcp(addr);
+        assert!(matches!(
+            source.hello(Role::Source, None),
+            Message::Welcome(_)
+        ));
+        let source_stop = stop.clone();
+        let thread = std::thread::spawn(move || {
+            let mut frame = 0;
+            while !source_stop.load(Ordering::Relaxed) {
+                let t = start.elapsed().as_nanos() as i64;
+                for msg in scene(frame, t) {
+                    if source.stream.write_all(&encode_frame(&msg)).is_err() {
+                        return;
+                    }
+                }
+                frame += 1;
+                std::thread::sleep(interval);
+            }
+        });
+        SceneSource {
+            stop,
+            thread: Some(thread),
+        }
+    }
+
+    /// Asks the thread to stop (it ends at its next frame).
+    pub fn signal(&self) {
+        self.stop.store(true, std::sync::atomic::Ordering::Relaxed);
+    }
+
+    /// Stops the thread and waits for it.
+    pub fn stop(mut self) {
+        self.signal();
+        if let Some(thread) = self.thread.take() {
+            thread.join().unwrap();
+        }
+    }
+}
+
 /// A fresh directory under the system temp dir, removed on drop.
 pub struct TempDir(pub PathBuf);
 
