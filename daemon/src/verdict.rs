@@ -221,16 +221,7 @@ fn unit_or_none(v: &Vector3<f64>) -> Option<Vector3<f64>> {
     if !(n2.is_finite() && n2 > 1e-300) {
         return None;
     }
-    // Dividing by exactly 1 keeps a unit vector bit for bit; the select
-    // instead of a branch matters because rotated vectors fall on either
-    // side of the test at random (a mispredicted branch per pair).
-    let norm = n2.sqrt();
-    let divisor = if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
-        1.0
-    } else {
-        norm
-    };
-    Some(v / divisor)
+    Some(v / crate::solve::unit_divisor(n2))
 }
 
 /// Residual angle up to which the arcsine series is used, rad (half-chord 0.05).

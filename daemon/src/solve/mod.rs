@@ -326,15 +326,21 @@ fn unit(v: &Vector3<f64>) -> Result<Vector3<f64>, &'static str> {
     if n2 < 1e-300 {
         return Err("zero vector");
     }
-    // Already unit to rounding: kept bit for bit (divided by exactly 1), by a
-    // select rather than a branch, which rotated vectors mispredict.
+    Ok(v / unit_divisor(n2))
+}
+
+/// What to divide a vector of squared norm `n2` (finite, not tiny) by to make
+/// it unit: exactly 1 when it is unit to rounding already (kept bit for bit),
+/// else its norm. A select rather than a branch: rotated vectors fall on
+/// either side of the test at random, which a branch mispredicts.
+#[inline]
+pub(crate) fn unit_divisor(n2: f64) -> f64 {
     let norm = n2.sqrt();
-    let divisor = if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
+    if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
         1.0
     } else {
         norm
-    };
-    Ok(v / divisor)
+    }
 }
 
 /// A rotation estimate inside the solvers, before conversion to a quaternion.
