@@ -118,12 +118,19 @@ fn scene(duration_ms: i64, dense: bool) -> Vec<Input> {
 /// Seconds of inputs after the warm-up in one steady-state run.
 const RUN_S: i64 = 30;
 
-/// An estimator fed the first 3 s, and the inputs of the following
+/// Seconds of inputs the warm-up feeds: past the first lap of the
+/// estimator's ring buffers (10,000 observations: 50 s at 200 a second;
+/// 4,000 rate samples: 40 s at 100 Hz), so that the timed epochs do not
+/// touch fresh pages of them for the first time, as a long `serve` run
+/// does not.
+const WARM_S: i64 = 60;
+
+/// An estimator fed the first `WARM_S` seconds, and the inputs of the following
 /// `RUN_S` seconds cut into 100 ms chunks (each closes one epoch);
 /// `verdicts`: whether solutions carry them (`serve` builds them only while
 /// a subscriber wants them).
 fn warmed(method: Method, dense: bool, verdicts: bool) -> (Estimator, Vec<Vec<Input>>) {
-    let inputs = scene(3_000 + RUN_S * 1_000, dense);
+    let inputs = scene((WARM_S + RUN_S) * 1_000, dense);
     let config = EstimatorConfig {
         method,
         ..EstimatorConfig::default()
@@ -134,11 +141,12 @@ fn warmed(method: Method, dense: bool, verdicts: bool) -> (Estimator, Vec<Vec<In
     let mut chunks: Vec<Vec<Input>> = Vec::new();
     for input in inputs {
         let t = input_t(&input);
-        if t < 3_000 * MS {
+        if t < WARM_S * 1_000 * MS {
             estimator.ingest(input, &mut out).unwrap();
+            out.clear();
             continue;
         }
-        let chunk_idx = ((t - 3_000 * MS) / (100 * MS)) as usize;
+        let chunk_idx = ((t - WARM_S * 1_000 * MS) / (100 * MS)) as usize;
         if chunks.len() <= chunk_idx {
             chunks.resize_with(chunk_idx + 1, Vec::new);
         }
@@ -206,14 +214,16 @@ fn epoch_group(c: &mut Criterion, dense: bool) {
                 let mut out = Vec::with_capacity(8);
                 while done < iters {
                     let (mut estimator, chunks) = warmed(method, dense, verdicts);
-                    for chunk in chunks.into_iter().take((iters - done) as usize) {
+                    for mut chunk in chunks.into_iter().take((iters - done) as usize) {
                         let start = Instant::now();
-                        for input in chunk {
+                        for input in chunk.drain(..) {
                             estimator.ingest(input, &mut out).unwrap();
                         }
                         out.clear();
                         total += start.elapsed();
                         done += 1;
+                        // The chunk's own buffer is freed untimed.
+                        drop(chunk);
                     }
                 }
                 total
@@ -231,10 +241,10 @@ fn epoch_group(c: &mut Criterion, dense: bool) {
     group.finish();
 }
 
-/// The pairs of the window the benched epoch (E = 3000 ms) solves: `E - 1 s < t <= E`.
+/// The pairs of one window the benched epochs solve (E = `WARM_S`): `E - 1 s < t <= E`.
 fn window_pairs(dense: bool) -> Vec<Pair> {
-    let inputs = scene(3_200, dense);
-    let epoch = 3_000 * MS;
+    let inputs = scene(WARM_S * 1_000 + 200, dense);
+    let epoch = WARM_S * 1_000 * MS;
     inputs
         .iter()
         .filter_map(|i| match i {

@@ -27,7 +27,7 @@
 use nalgebra::{Matrix3, UnitQuaternion, Vector3};
 
 use crate::solve::eigen::symmetric_eigen3;
-use crate::solve::Pair;
+use crate::solve::{LoadedPairs, Pair};
 
 /// Variance reported on an unobservable axis, rad² (finite so JSON can carry it).
 pub const UNOBSERVABLE_VARIANCE: f64 = 1.0e12;
@@ -85,7 +85,7 @@ impl Default for Verdict {
 /// Judges `q` against `pairs` with gate multiplier `gate_k`.
 pub fn assess(pairs: &[Pair], q: &UnitQuaternion<f64>, gate_k: f64) -> Verdict {
     let mut v = Verdict::default();
-    assess_into(&mut v, pairs, q, gate_k, true, None);
+    assess_into(&mut v, pairs, q, gate_k, true);
     v
 }
 
@@ -93,20 +93,66 @@ pub fn assess(pairs: &[Pair], q: &UnitQuaternion<f64>, gate_k: f64) -> Verdict {
 /// once they have grown to the window size). Without `residuals` the
 /// residual angles are not computed and `v.residuals` is left empty; the
 /// flags, covariance and observability are the same either way.
-///
-/// `solver_gates`: the squared-chord gates a [`crate::Solver`] computed for
-/// these very pairs and this `gate_k` ([`crate::Solver::gate_chord2s`]),
-/// to save computing them again; the same numbers (the solver caps the
-/// angle at `π`, which here means every angle passes).
 pub fn assess_into(
     v: &mut Verdict,
     pairs: &[Pair],
     q: &UnitQuaternion<f64>,
     gate_k: f64,
     residuals: bool,
-    solver_gates: Option<&[f64]>,
 ) {
-    let solver_gates = solver_gates.filter(|g| g.len() == pairs.len());
+    // Consecutive pairs of one sensor often share σ, and so their gate.
+    let (mut last_sigma, mut last_gate) = (f64::NAN, 0.0);
+    judge(v, pairs.len(), q, residuals, |i| {
+        let p = &pairs[i];
+        let (b, r) = checked_unit_pair(p)?;
+        if p.sigma != last_sigma {
+            last_sigma = p.sigma;
+            last_gate = gate_of(gate_k * p.sigma);
+        }
+        Some((b, r, 1.0 / (p.sigma * p.sigma), last_gate))
+    });
+}
+
+/// [`assess_into`] on the pairs a [`crate::Solver`] validated, normalised
+/// and weighed for its last solve ([`crate::Solver::loaded`]), at the
+/// solver's gate multiplier: the same verdict as [`assess_into`] on the
+/// solver's input, without normalising or weighing the pairs again (the
+/// solver caps the gate angle at `π`, which here means every angle passes).
+pub fn assess_loaded_into(
+    v: &mut Verdict,
+    loaded: &LoadedPairs<'_>,
+    q: &UnitQuaternion<f64>,
+    residuals: bool,
+) {
+    let LoadedPairs {
+        pairs,
+        inv_var,
+        gate_chord2,
+    } = *loaded;
+    let n = pairs.len().min(inv_var.len()).min(gate_chord2.len());
+    judge(v, n, q, residuals, |i| {
+        // A chord is at most 2: a gate of 4 or more passes every pair.
+        let gate = if gate_chord2[i] >= 4.0 {
+            f64::INFINITY
+        } else {
+            gate_chord2[i]
+        };
+        Some((pairs[i].b, pairs[i].r, inv_var[i], gate))
+    });
+}
+
+/// The verdict on `n` pairs, pair `i` given by `pair(i)` as unit `b`, unit
+/// `r`, weight `σ⁻²` and squared-chord gate, or `None` when it is invalid
+/// (an outlier at `π`). Called once per pair in order, and again for the
+/// rare large residual angles.
+#[inline]
+fn judge(
+    v: &mut Verdict,
+    n: usize,
+    q: &UnitQuaternion<f64>,
+    residuals: bool,
+    mut pair: impl FnMut(usize) -> Option<(Vector3<f64>, Vector3<f64>, f64, f64)>,
+) {
     let a = q.to_rotation_matrix().into_inner();
     v.residuals.clear();
     v.inliers.clear();
@@ -116,9 +162,8 @@ pub fn assess_into(
     // per-observation verdicts need.
     let (mut info, mut geometry) = (Spread::default(), Spread::default());
     let mut n_inliers = 0;
-    let (mut last_sigma, mut last_gate) = (f64::NAN, 0.0);
-    for (i, p) in pairs.iter().enumerate() {
-        let Some((b, r)) = checked_unit_pair(p) else {
+    for i in 0..n {
+        let Some((b, r, w, gate)) = pair(i) else {
             v.inliers.push(false);
             if residuals {
                 v.residuals.push(INVALID_CHORD2);
@@ -129,27 +174,10 @@ pub fn assess_into(
         if residuals {
             v.residuals.push(chord2);
         }
-        match solver_gates {
-            // A chord is at most 2: a gate of 4 or more passes every pair.
-            Some(gates) => {
-                last_gate = if gates[i] >= 4.0 {
-                    f64::INFINITY
-                } else {
-                    gates[i]
-                }
-            }
-            // Consecutive pairs of one sensor often share σ.
-            None if p.sigma != last_sigma => {
-                last_sigma = p.sigma;
-                last_gate = gate_of(gate_k * p.sigma);
-            }
-            None => {}
-        }
-        let inlier = chord2 <= last_gate;
+        let inlier = chord2 <= gate;
         v.inliers.push(inlier);
         if inlier {
             n_inliers += 1;
-            let w = 1.0 / (p.sigma * p.sigma);
             info.add(w, &b);
             geometry.add(w, &r);
         }
@@ -160,10 +188,10 @@ pub fn assess_into(
         for theta in v.residuals.iter_mut() {
             *theta = small_angle_of_chord2(*theta);
         }
-        for (theta, p) in v.residuals.iter_mut().zip(pairs) {
+        for (i, theta) in v.residuals.iter_mut().enumerate() {
             if theta.is_nan() || *theta > SERIES_MAX_ANGLE {
-                *theta = match checked_unit_pair(p) {
-                    Some((b, r)) => large_angle(&b, &(a * r)),
+                *theta = match pair(i) {
+                    Some((b, r, _, _)) => large_angle(&b, &(a * r)),
                     None => std::f64::consts::PI,
                 };
             }
@@ -171,10 +199,10 @@ pub fn assess_into(
     }
     let (info, geometry) = (info.projector_sum(), geometry.projector_sum());
     v.n_inliers = n_inliers;
-    v.inlier_fraction = if pairs.is_empty() {
+    v.inlier_fraction = if n == 0 {
         0.0
     } else {
-        n_inliers as f64 / pairs.len() as f64
+        n_inliers as f64 / n as f64
     };
     let (mut covariance, mut observability) = covariance_of(&info, n_inliers);
     if observability == Observability::Full && !spans_two_directions(&geometry) {
@@ -221,7 +249,7 @@ fn unit_or_none(v: &Vector3<f64>) -> Option<Vector3<f64>> {
     if !(n2.is_finite() && n2 > 1e-300) {
         return None;
     }
-    Some(v / crate::solve::unit_divisor(n2))
+    Some(v * crate::solve::unit_scale(n2))
 }
 
 /// Residual angle up to which the arcsine series is used, rad (half-chord 0.05).
@@ -301,6 +329,20 @@ impl Spread {
 /// Whether the weighted reference directions behind `geometry` span two
 /// independent directions, by the eigenvalue ratio of the module doc.
 fn spans_two_directions(geometry: &Matrix3<f64>) -> bool {
+    // Shortcut, no eigenvalues: for a positive semi-definite 3×3 matrix
+    // λ₂λ₃ ≤ (tr/2)², so λ₁ ≥ 4 det / tr², and λ₃ ≤ tr. Hence
+    // 4 det > 2 · ratio · tr³ gives λ₁ > 2 · ratio · λ₃: the test passes
+    // with a margin far beyond the rounding of det and of the eigenvalues
+    // (about 1e-16 · tr³), so the answer is the eigenvalues' answer.
+    let tr = geometry.trace();
+    if tr > 0.0 && 4.0 * geometry.determinant() > 2.0 * OBSERVABILITY_RATIO * tr * tr * tr {
+        return true;
+    }
+    spans_by_eigenvalues(geometry)
+}
+
+/// [`spans_two_directions`] by the eigenvalues alone.
+fn spans_by_eigenvalues(geometry: &Matrix3<f64>) -> bool {
     match symmetric_eigen3(geometry) {
         Some(eig) => eig.values[0] > OBSERVABILITY_RATIO * eig.values[2],
         None => false,
@@ -368,6 +410,33 @@ mod tests {
             r: Vector3::from(r).normalize(),
             sigma,
         }
+    }
+
+    #[test]
+    fn the_span_shortcut_gives_the_eigenvalue_answer() {
+        // Geometries from two to forty directions spread by 1 rad down to
+        // 1e-9 rad about one axis (a single sensor's reference directions,
+        // nearly parallel), weights from 1e-2 to 1e10: the determinant
+        // shortcut never changes the eigenvalue test's answer, and both
+        // answers occur.
+        let mut seen = [false; 2];
+        for case in 0..400 {
+            let spread = 10f64.powf(-(case % 10) as f64);
+            let n = 2 + case % 39;
+            let mut g = Spread::default();
+            for i in 0..n {
+                let x = (case * 41 + i) as f64;
+                let tilt = Vector3::new((0.37 * x).sin(), (0.71 * x).cos(), 0.0) * spread;
+                let r = (Vector3::new(0.2, -0.3, 1.0) + tilt).normalize();
+                let w = 10f64.powf(-2.0 + 12.0 * (0.618 * x).fract());
+                g.add(w, &r);
+            }
+            let geometry = g.projector_sum();
+            let want = spans_by_eigenvalues(&geometry);
+            assert_eq!(spans_two_directions(&geometry), want, "case {case}");
+            seen[want as usize] = true;
+        }
+        assert_eq!(seen, [true, true]);
     }
 
     #[test]
@@ -491,7 +560,7 @@ mod tests {
         want.push(false);
         let with = assess(&pairs, &q, k);
         let mut without = Verdict::default();
-        assess_into(&mut without, &pairs, &q, k, false, None);
+        assess_into(&mut without, &pairs, &q, k, false);
         assert_eq!(with.inliers, want);
         assert!(want.iter().filter(|&&w| w).count() > 100);
         assert!(want.iter().filter(|&&w| !w).count() > 100);
@@ -500,7 +569,7 @@ mod tests {
         assert_eq!(without.covariance, with.covariance);
         assert_eq!(without.observability, with.observability);
         assert_eq!(with.residuals.len(), pairs.len());
-        // The solver's own gates of the valid pairs give the same verdict.
+        // The solver's own copy of the valid pairs gives the same verdict.
         let valid = &pairs[..pairs.len() - 1];
         let mut solver = crate::Solver::new(crate::SolveParams {
             gate_k: k,
@@ -508,7 +577,7 @@ mod tests {
         });
         solver.solve(valid, crate::Method::Ls, None).unwrap();
         let mut reused = Verdict::default();
-        assess_into(&mut reused, valid, &q, k, true, Some(solver.gate_chord2s()));
+        assess_loaded_into(&mut reused, &solver.loaded(), &q, true);
         assert_eq!(reused, assess(valid, &q, k));
     }
 

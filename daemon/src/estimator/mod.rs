@@ -88,7 +88,9 @@ pub use config::{
 };
 
 use crate::solve::{Pair, SolveError, Solver};
-use crate::verdict::{assess_into, Observability, Verdict, UNOBSERVABLE_VARIANCE};
+use crate::verdict::{
+    assess_into, assess_loaded_into, Observability, Verdict, UNOBSERVABLE_VARIANCE,
+};
 use config::Checked;
 use propagate::{RateBuffer, RateSample};
 use window::{epoch_at_or_after, first_open_epoch, BufferedObs, ObsBuffer};
@@ -278,6 +280,10 @@ fn unit(v: [f64; 3]) -> Vector3<f64> {
 }
 
 const NS_PER_S: f64 = 1e9;
+const S_PER_NS: f64 = 1e-9;
+
+/// Up to this many sensors [`Estimator::find_sensor`] scans them in order.
+const SCANNED_SENSORS: usize = 8;
 
 impl Estimator {
     /// An estimator for `config`, after checking it.
@@ -396,6 +402,20 @@ impl Estimator {
         idx
     }
 
+    /// The index of sensor `name`, if known: a scan of the few sensors of a
+    /// usual bench (cheaper than the map's string comparisons down a tree),
+    /// the map beyond.
+    #[inline]
+    fn find_sensor(&self, name: &str) -> Option<u16> {
+        if self.sensors.len() <= SCANNED_SENSORS {
+            (0u16..)
+                .zip(&self.sensors)
+                .find_map(|(idx, state)| (state.name == name).then_some(idx))
+        } else {
+            self.sensor_by_name.get(name).copied()
+        }
+    }
+
     /// Checks the per-sensor rules and records the message; returns the sensor index.
     fn admit(
         &mut self,
@@ -405,8 +425,8 @@ impl Estimator {
         needs_sigma: bool,
         out: &mut Vec<Output>,
     ) -> Result<u16, IngestError> {
-        let idx = match self.sensor_by_name.get(sensor) {
-            Some(&idx) => idx,
+        let idx = match self.find_sensor(sensor) {
+            Some(idx) => idx,
             None => {
                 if needs_sigma {
                     return Err(IngestError::NoSigma {
@@ -628,32 +648,36 @@ impl Estimator {
         let arw2 = self.config.gyro_arw * self.config.gyro_arw;
         let to_epoch = propagated.then(|| self.rates.anchored(epoch).to_rotation_matrix());
         let (generation, settled_before) = (self.rates.generation(), self.rates.settled_before());
-        for obs in self.obs.iter_range_mut(range.clone()) {
-            let (b, sigma) = match &to_epoch {
-                Some(k_epoch) => {
-                    if obs.anchored_gen != generation {
-                        obs.anchored_b =
-                            self.rates.anchored(obs.t).inverse_transform_vector(&obs.b);
-                        // Kept for later epochs only where `K` is settled.
-                        obs.anchored_gen = if obs.t < settled_before {
-                            generation
-                        } else {
-                            0
-                        };
+        // One `extend` rather than a `push` per pair: the pairs are written
+        // in place (a pushed value was built on the stack and copied, with
+        // stalls on reading back the parts just written).
+        let (rates, counts) = (&self.rates, &mut self.counts);
+        self.pairs
+            .extend(self.obs.iter_range_mut(range.clone()).map(|obs| {
+                counts[obs.sensor_idx as usize].0 += 1;
+                let (b, sigma) = match &to_epoch {
+                    Some(k_epoch) => {
+                        if obs.anchored_gen != generation {
+                            obs.anchored_b = rates.anchored(obs.t).inverse_transform_vector(&obs.b);
+                            // Kept for later epochs only where `K` is settled.
+                            obs.anchored_gen = if obs.t < settled_before {
+                                generation
+                            } else {
+                                0
+                            };
+                        }
+                        // The variance for now: its square root is taken in a
+                        // loop of its own below, where the roots overlap.
+                        let dt_s = (epoch - obs.t) as f64 * S_PER_NS;
+                        (
+                            k_epoch * obs.anchored_b,
+                            obs.sigma * obs.sigma + arw2 * dt_s,
+                        )
                     }
-                    // The variance for now: its square root is taken in a
-                    // loop of its own below, where the roots overlap.
-                    let dt_s = (epoch - obs.t) as f64 / NS_PER_S;
-                    (
-                        k_epoch * obs.anchored_b,
-                        obs.sigma * obs.sigma + arw2 * dt_s,
-                    )
-                }
-                None => (obs.b, obs.sigma),
-            };
-            self.pairs.push(Pair { b, r: obs.r, sigma });
-            self.counts[obs.sensor_idx as usize].0 += 1;
-        }
+                    None => (obs.b, obs.sigma),
+                };
+                Pair { b, r: obs.r, sigma }
+            }));
         if propagated {
             for pair in &mut self.pairs {
                 pair.sigma = pair.sigma.sqrt();
@@ -703,13 +727,11 @@ impl Estimator {
                 .solve(&self.pairs, configured_method, warm.as_ref())
             {
                 Ok(outcome) => {
-                    assess_into(
+                    assess_loaded_into(
                         &mut self.verdict,
-                        &self.pairs,
+                        &self.solver.loaded(),
                         &outcome.q,
-                        gate_k,
                         residuals,
-                        Some(self.solver.gate_chord2s()),
                     );
                     let verdict = &self.verdict;
                     let (method, iterations) = (outcome.method.as_str(), outcome.iterations);
@@ -768,29 +790,37 @@ impl Estimator {
             q: if solved { q } else { fallback_q },
         });
 
-        // Verdicts, per-sensor counts and the inliers' mean age, in one pass.
-        let mut verdicts = Vec::with_capacity(if self.emit_verdicts { n } else { 0 });
+        // Per-sensor inlier counts and the inliers' mean age, then the verdicts.
         let mut age = InlierAge::default();
         let inliers = &self.verdict.inliers;
+        let is_inlier = |pair_idx: usize| inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
         // `aged` only after a successful solve of these pairs, whose σ⁻² the solver kept.
         let inv_var = self.solver.inverse_variances();
-        for (pair_idx, obs) in self.obs.iter_range(range).enumerate() {
-            let inlier = inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
-            if inlier {
+        for (pair_idx, obs) in self.obs.iter_range(range.clone()).enumerate() {
+            if is_inlier(pair_idx) {
                 self.counts[obs.sensor_idx as usize].1 += 1;
                 if aged {
                     age.add(inv_var[pair_idx], epoch - obs.t);
                 }
             }
-            if self.emit_verdicts {
-                verdicts.push(ObsVerdict {
-                    sensor: self.sensors[obs.sensor_idx as usize].name.clone(),
-                    seq: obs.seq,
-                    residual: self.verdict.residuals[pair_idx],
-                    inlier,
-                });
-            }
         }
+        let verdicts = self.emit_verdicts.then(|| {
+            let (sensors, residuals) = (&self.sensors, &self.verdict.residuals);
+            // Written in place by one `extend` (see the pairs above).
+            let mut verdicts = Vec::with_capacity(n);
+            verdicts.extend(
+                self.obs
+                    .iter_range(range)
+                    .enumerate()
+                    .map(|(pair_idx, obs)| ObsVerdict {
+                        sensor: sensors[obs.sensor_idx as usize].name.clone(),
+                        seq: obs.seq,
+                        residual: residuals[pair_idx],
+                        inlier: is_inlier(pair_idx),
+                    }),
+            );
+            verdicts
+        });
         if full {
             let common = if aged { arw2 * age.mean_s() } else { 0.0 };
             cov += Matrix3::identity() * common;
@@ -820,7 +850,7 @@ impl Estimator {
             method: method.to_string(),
             iterations,
             sensors,
-            verdicts: self.emit_verdicts.then_some(verdicts),
+            verdicts,
             propagated: (!propagated).then_some(false),
         }));
         self.stats.epochs += 1;
@@ -829,7 +859,7 @@ impl Estimator {
 
     /// The verdict of the fallback attitude when no solve gave one (no solver gates).
     fn assess_unsolved(&mut self, q: &UnitQuaternion<f64>, gate_k: f64, residuals: bool) {
-        assess_into(&mut self.verdict, &self.pairs, q, gate_k, residuals, None);
+        assess_into(&mut self.verdict, &self.pairs, q, gate_k, residuals);
     }
 
     fn judge_epoch_alerts(

@@ -193,11 +193,15 @@ fn segment(w: &Vector3<f64>, dt_ns: i64) -> UnitQuaternion<f64> {
     if theta2.is_nan() || theta2 > SERIES_MAX_ANGLE * SERIES_MAX_ANGLE {
         return UnitQuaternion::from_scaled_axis(v);
     }
+    // By Horner with the coefficients as constants: multiplications only
+    // (a division per term, as `h2 / 12.0` would be, chains the divider's
+    // latency through the whole polynomial).
+    const COS: [f64; 4] = [-1.0 / 2.0, 1.0 / 24.0, -1.0 / 720.0, 1.0 / 40_320.0];
+    const SINC: [f64; 4] = [-1.0 / 6.0, 1.0 / 120.0, -1.0 / 5_040.0, 1.0 / 362_880.0];
     let h2 = 0.25 * theta2; // (θ/2)²
-    let cos_half = 1.0 - h2 / 2.0 * (1.0 - h2 / 12.0 * (1.0 - h2 / 30.0 * (1.0 - h2 / 56.0)));
+    let cos_half = 1.0 + h2 * (COS[0] + h2 * (COS[1] + h2 * (COS[2] + h2 * COS[3])));
     // sin(θ/2)/θ = ½ · sin(h)/h
-    let sinc_half =
-        0.5 * (1.0 - h2 / 6.0 * (1.0 - h2 / 20.0 * (1.0 - h2 / 42.0 * (1.0 - h2 / 72.0))));
+    let sinc_half = 0.5 * (1.0 + h2 * (SINC[0] + h2 * (SINC[1] + h2 * (SINC[2] + h2 * SINC[3]))));
     UnitQuaternion::new_unchecked(Quaternion::new(
         cos_half,
         v.x * sinc_half,

@@ -65,17 +65,28 @@ impl ObsBuffer {
         &mut self.obs[idx]
     }
 
-    /// The observations of an index range, in time order.
-    pub fn iter_range(&self, range: std::ops::Range<usize>) -> impl Iterator<Item = &BufferedObs> {
-        self.obs.range(range)
+    /// The observations of an index range, in time order. (The ring's two
+    /// slices chained: an iterator of known length, which `Vec::extend`
+    /// writes in place.)
+    pub fn iter_range(
+        &self,
+        range: std::ops::Range<usize>,
+    ) -> std::iter::Chain<std::slice::Iter<'_, BufferedObs>, std::slice::Iter<'_, BufferedObs>>
+    {
+        let (a, b) = self.obs.as_slices();
+        let (in_a, in_b) = split_range(range, a.len());
+        a[in_a].iter().chain(b[in_b].iter())
     }
 
     /// The observations of an index range, to update their cached propagation.
     pub fn iter_range_mut(
         &mut self,
         range: std::ops::Range<usize>,
-    ) -> impl Iterator<Item = &mut BufferedObs> {
-        self.obs.range_mut(range)
+    ) -> std::iter::Chain<std::slice::IterMut<'_, BufferedObs>, std::slice::IterMut<'_, BufferedObs>>
+    {
+        let (a, b) = self.obs.as_mut_slices();
+        let (in_a, in_b) = split_range(range, a.len());
+        a[in_a].iter_mut().chain(b[in_b].iter_mut())
     }
 
     /// Time of the oldest observation held.
@@ -113,6 +124,18 @@ impl ObsBuffer {
         let hi = self.obs.partition_point(|o| o.t <= upto);
         lo..hi.max(lo)
     }
+}
+
+/// `range` of a ring split at `split` (the length of its first slice):
+/// the parts in the first and in the second slice.
+fn split_range(
+    range: std::ops::Range<usize>,
+    split: usize,
+) -> (std::ops::Range<usize>, std::ops::Range<usize>) {
+    (
+        range.start.min(split)..range.end.min(split),
+        range.start.saturating_sub(split)..range.end.saturating_sub(split),
+    )
 }
 
 /// The first multiple of `period` at or after `t`.
@@ -157,6 +180,23 @@ mod tests {
         // Newest 1049 with L = 50: epoch 1000 needs 1050, so it is still open.
         assert_eq!(first_open_epoch(1049, 100, 50), 1000);
         assert_eq!(first_open_epoch(1050, 100, 50), 1100);
+    }
+
+    #[test]
+    fn ranges_read_across_the_ring_wrap() {
+        // Capacity 4, six in: the ring wraps, the ranges still come in order.
+        let mut buf = ObsBuffer::with_capacity(4);
+        for i in 0..6 {
+            buf.insert(obs(10 * i, i as u64), 4);
+        }
+        for (lo, hi) in [(0, 4), (1, 3), (0, 0), (2, 4), (3, 4)] {
+            let seqs: Vec<u64> = buf.iter_range(lo..hi).map(|o| o.seq).collect();
+            let want: Vec<u64> = (lo..hi).map(|i| buf.get(i).seq).collect();
+            assert_eq!(seqs, want);
+            let seqs_mut: Vec<u64> = buf.iter_range_mut(lo..hi).map(|o| o.seq).collect();
+            assert_eq!(seqs_mut, want);
+        }
+        assert_eq!(buf.get(0).seq, 2);
     }
 
     #[test]

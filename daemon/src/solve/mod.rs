@@ -251,30 +251,46 @@ impl Workspace {
         self.pairs.clear();
         self.inv_var.clear();
         self.gate_chord2.clear();
+        // One `extend` writes the pairs in place (a `push` per pair built each
+        // on the stack and copied it); the first invalid pair is the error.
+        let mut invalid = None;
+        self.pairs
+            .extend(pairs.iter().enumerate().map(|(index, p)| {
+                let checked = unit(&p.b)
+                    .and_then(|b| Ok((b, unit(&p.r)?)))
+                    .and_then(|(b, r)| {
+                        if p.sigma.is_finite() && p.sigma > 0.0 {
+                            Ok((b, r))
+                        } else {
+                            Err("sigma must be finite and > 0")
+                        }
+                    });
+                match checked {
+                    Ok((b, r)) => Pair {
+                        b,
+                        r,
+                        sigma: p.sigma,
+                    },
+                    Err(reason) => {
+                        invalid.get_or_insert(SolveError::InvalidPair { index, reason });
+                        *p
+                    }
+                }
+            }));
+        if let Some(err) = invalid {
+            return Err(err);
+        }
+        self.inv_var
+            .extend(self.pairs.iter().map(|p| 1.0 / (p.sigma * p.sigma)));
         // Consecutive pairs usually share a σ (one sensor): reuse its gate.
-        let mut last_sigma = f64::NAN;
-        let mut last_gate = 0.0;
-        for (index, p) in pairs.iter().enumerate() {
-            let b = unit(&p.b).map_err(|reason| SolveError::InvalidPair { index, reason })?;
-            let r = unit(&p.r).map_err(|reason| SolveError::InvalidPair { index, reason })?;
-            if !(p.sigma.is_finite() && p.sigma > 0.0) {
-                return Err(SolveError::InvalidPair {
-                    index,
-                    reason: "sigma must be finite and > 0",
-                });
-            }
+        let (mut last_sigma, mut last_gate) = (f64::NAN, 0.0);
+        self.gate_chord2.extend(self.pairs.iter().map(|p| {
             if p.sigma != last_sigma {
                 last_gate = gate_chord2((gate_k * p.sigma).min(std::f64::consts::PI));
                 last_sigma = p.sigma;
             }
-            self.pairs.push(Pair {
-                b,
-                r,
-                sigma: p.sigma,
-            });
-            self.inv_var.push(1.0 / (p.sigma * p.sigma));
-            self.gate_chord2.push(last_gate);
-        }
+            last_gate
+        }));
         self.work_w.resize(n, 0.0);
         self.resid.resize(n, 0.0);
         self.inl.resize(n, false);
@@ -326,20 +342,22 @@ fn unit(v: &Vector3<f64>) -> Result<Vector3<f64>, &'static str> {
     if n2 < 1e-300 {
         return Err("zero vector");
     }
-    Ok(v / unit_divisor(n2))
+    Ok(v * unit_scale(n2))
 }
 
-/// What to divide a vector of squared norm `n2` (finite, not tiny) by to make
-/// it unit: exactly 1 when it is unit to rounding already (kept bit for bit),
-/// else its norm. A select rather than a branch: rotated vectors fall on
-/// either side of the test at random, which a branch mispredicts.
+/// What to multiply a vector of squared norm `n2` (finite, not tiny) by to
+/// make it unit: exactly 1 when it is unit to rounding already (kept bit for
+/// bit), else the reciprocal of its norm (one division for three
+/// components: divisions were most of the cost of loading a window). A
+/// select rather than a branch: rotated vectors fall on either side of the
+/// test at random, which a branch mispredicts.
 #[inline]
-pub(crate) fn unit_divisor(n2: f64) -> f64 {
-    let norm = n2.sqrt();
+pub(crate) fn unit_scale(n2: f64) -> f64 {
+    let inv_norm = 1.0 / n2.sqrt();
     if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
         1.0
     } else {
-        norm
+        inv_norm
     }
 }
 
@@ -354,6 +372,17 @@ pub(crate) struct Estimate {
     pub converged: bool,
     /// The method that produced it.
     pub method: Method,
+}
+
+/// A solver's validated copy of the pairs of its last solve ([`Solver::loaded`]).
+#[derive(Debug, Clone, Copy)]
+pub struct LoadedPairs<'a> {
+    /// The pairs with unit vectors and a finite σ `> 0`.
+    pub pairs: &'a [Pair],
+    /// `σ_i⁻²`, computed as `1 / (σ_i σ_i)`.
+    pub inv_var: &'a [f64],
+    /// Squared-chord gates `(2 sin(min(k σ_i, π)/2))²` at the solver's `k`.
+    pub gate_chord2: &'a [f64],
 }
 
 /// Reusable solver state: holds scratch buffers so steady-state solves do not allocate.
@@ -393,9 +422,20 @@ impl Solver {
     }
 
     /// Squared-chord gates `(2 sin(min(k σ_i, π)/2))²` of the pairs of the
-    /// last solve that got past validation (see [`crate::verdict::assess_into`]).
+    /// last solve that got past validation.
     pub fn gate_chord2s(&self) -> &[f64] {
         &self.ws.gate_chord2
+    }
+
+    /// The pairs of the last solve as validated and normalised, with their
+    /// `σ⁻²` and gates: all of them when the solve got past validation
+    /// (see [`crate::verdict::assess_loaded_into`]).
+    pub fn loaded(&self) -> LoadedPairs<'_> {
+        LoadedPairs {
+            pairs: &self.ws.pairs,
+            inv_var: &self.ws.inv_var,
+            gate_chord2: &self.ws.gate_chord2,
+        }
     }
 
     /// Solves Wahba's problem for `pairs` with `method`, optionally warm-started.

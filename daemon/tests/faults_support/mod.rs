@@ -13,11 +13,19 @@ use crate::serve_support::{q_unit, rotate, unit, Client, Q_TRUE};
 
 /// Asks the daemon for its counters over a fresh subscriber connection.
 pub fn status(addr: SocketAddr) -> StatusReport {
-    let mut client = Client::tcp(addr);
-    assert!(matches!(
-        client.hello(Role::Subscriber, None),
-        Message::Welcome(_)
-    ));
+    // `busy` means "try again later" (PROTOCOL.md): the daemon may still be
+    // releasing connections a test just dropped.
+    let deadline = Instant::now() + Duration::from_secs(10);
+    let mut client = loop {
+        let mut client = Client::tcp(addr);
+        match client.hello(Role::Subscriber, None) {
+            Message::Welcome(_) => break client,
+            Message::Error(e) if e.code == "busy" && Instant::now() < deadline => {
+                std::thread::sleep(Duration::from_millis(50));
+            }
+            answer => panic!("hello answered {answer:?}"),
+        }
+    };
     client.send(&Message::Status(wahbad_protocol::Status::request()));
     let deadline = Instant::now() + Duration::from_secs(10);
     while Instant::now() < deadline {
