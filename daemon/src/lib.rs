@@ -33,5 +33,5 @@ pub use estimator::{
     Stats,
 };
 pub use settings::{ServeArgs, ServeConfig};
-pub use solve::{LoadedPairs, Method, Outcome, Pair, SolveError, SolveParams, Solver};
+pub use solve::{FinalGate, LoadedPairs, Method, Outcome, Pair, SolveError, SolveParams, Solver};
 pub use verdict::{assess, Observability, Verdict};

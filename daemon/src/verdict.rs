@@ -27,7 +27,7 @@
 use nalgebra::{Matrix3, UnitQuaternion, Vector3};
 
 use crate::solve::eigen::symmetric_eigen3;
-use crate::solve::{LoadedPairs, Pair};
+use crate::solve::{FinalGate, LoadedPairs, Pair};
 
 /// Variance reported on an unobservable axis, rad² (finite so JSON can carry it).
 pub const UNOBSERVABLE_VARIANCE: f64 = 1.0e12;
@@ -183,20 +183,41 @@ fn judge(
         }
     }
     if residuals {
-        // Chords to angles: a branch-free loop the compiler runs two or four
-        // pairs wide, with the rare large angles redone after.
-        for theta in v.residuals.iter_mut() {
-            *theta = small_angle_of_chord2(*theta);
-        }
-        for (i, theta) in v.residuals.iter_mut().enumerate() {
-            if theta.is_nan() || *theta > SERIES_MAX_ANGLE {
-                *theta = match pair(i) {
-                    Some((b, r, _, _)) => large_angle(&b, &(a * r)),
-                    None => std::f64::consts::PI,
-                };
-            }
+        chords_to_angles(&mut v.residuals, &a, pair);
+    }
+    conclude(v, n, n_inliers, &info, &geometry, &a);
+}
+
+/// Squared chords to residual angles in place: a branch-free loop the
+/// compiler runs two or four pairs wide, with the rare large angles (and the
+/// invalid pairs, whose `pair(i)` is `None`) redone after.
+fn chords_to_angles(
+    residuals: &mut [f64],
+    a: &Matrix3<f64>,
+    mut pair: impl FnMut(usize) -> Option<(Vector3<f64>, Vector3<f64>, f64, f64)>,
+) {
+    for theta in residuals.iter_mut() {
+        *theta = small_angle_of_chord2(*theta);
+    }
+    for (i, theta) in residuals.iter_mut().enumerate() {
+        if theta.is_nan() || *theta > SERIES_MAX_ANGLE {
+            *theta = match pair(i) {
+                Some((b, r, _, _)) => large_angle(&b, &(a * r)),
+                None => std::f64::consts::PI,
+            };
         }
     }
+}
+
+/// Counts, covariance and observability from the inliers' sums.
+fn conclude(
+    v: &mut Verdict,
+    n: usize,
+    n_inliers: usize,
+    info: &Spread,
+    geometry: &Spread,
+    a: &Matrix3<f64>,
+) {
     let (info, geometry) = (info.projector_sum(), geometry.projector_sum());
     v.n_inliers = n_inliers;
     v.inlier_fraction = if n == 0 {
@@ -217,6 +238,53 @@ fn judge(
     }
     v.covariance = covariance;
     v.observability = observability;
+}
+
+/// The verdict on the pairs a robust [`crate::Solver`] solve loaded, from its
+/// final gate ([`crate::Solver::final_gate`]): the flags and squared chords it
+/// computed at the very rotation it returned, so no pair is gated twice. The
+/// same verdict as [`assess_loaded_into`] at the outcome's quaternion, to the
+/// rounding of turning that rotation into a quaternion and back (residuals
+/// within about 1e-16 rad).
+pub fn assess_gated_into(
+    v: &mut Verdict,
+    loaded: &LoadedPairs<'_>,
+    gate: &FinalGate<'_>,
+    residuals: bool,
+) {
+    let LoadedPairs {
+        pairs,
+        inv_var,
+        gate_chord2,
+    } = *loaded;
+    let n = pairs
+        .len()
+        .min(inv_var.len())
+        .min(gate_chord2.len())
+        .min(gate.inliers.len())
+        .min(gate.chord2.len());
+    v.residuals.clear();
+    v.inliers.clear();
+    let (mut info, mut geometry) = (Spread::default(), Spread::default());
+    let mut n_inliers = 0;
+    for i in 0..n {
+        // The solver's gate caps the angle at `π` (a squared chord of 4),
+        // where a chord rounded just past 2 would fail it; here any passes.
+        let inlier = gate.inliers[i] || gate_chord2[i] >= 4.0;
+        v.inliers.push(inlier);
+        if inlier {
+            n_inliers += 1;
+            info.add(inv_var[i], &pairs[i].b);
+            geometry.add(inv_var[i], &pairs[i].r);
+        }
+    }
+    if residuals {
+        v.residuals.extend_from_slice(&gate.chord2[..n]);
+        chords_to_angles(&mut v.residuals, &gate.a, |i| {
+            Some((pairs[i].b, pairs[i].r, inv_var[i], gate_chord2[i]))
+        });
+    }
+    conclude(v, n, n_inliers, &info, &geometry, &gate.a);
 }
 
 /// The squared-chord gate of angle `k σ`; infinite from `π` on, where every
@@ -524,6 +592,57 @@ mod tests {
         let v = assess(&[bad], &UnitQuaternion::identity(), 3.0);
         assert_eq!(v.residuals, vec![std::f64::consts::PI]);
         assert_eq!(v.inliers, vec![false]);
+    }
+
+    #[test]
+    fn the_final_gate_gives_the_verdict_of_the_returned_quaternion() {
+        // 120 pairs, σ from 1e-4 to 1e-2, a quarter of them corrupted; each
+        // robust method (and `auto`, warm and cold) hands its final gate to
+        // the verdict, which must be the verdict judged afresh at the
+        // outcome's quaternion: same flags and observability, residuals to
+        // the rounding of the matrix → quaternion → matrix round trip.
+        let q = UnitQuaternion::from_scaled_axis(Vector3::new(0.4, -0.2, 0.7));
+        let pairs: Vec<Pair> = (0..120)
+            .map(|i| {
+                let x = i as f64;
+                let r = Vector3::new((0.37 * x).sin(), (0.71 * x).cos(), (0.13 * x).sin() + 0.2)
+                    .normalize();
+                let sigma = [1e-4, 1e-3, 1e-2][i % 3];
+                let axis = r.cross(&Vector3::new(0.3, 0.1, -0.9)).normalize();
+                let angle = if i % 4 == 1 { 0.3 + 0.01 * x } else { 0.8 * sigma * (0.618 * x).fract() };
+                let b = q * (UnitQuaternion::from_scaled_axis(axis * angle) * r);
+                Pair { b, r, sigma }
+            })
+            .collect();
+        let mut solver = crate::Solver::default();
+        let k = solver.params().gate_k;
+        let warm = UnitQuaternion::from_scaled_axis(Vector3::new(0.4001, -0.2, 0.7));
+        let cases = [
+            (crate::Method::Auto, Some(warm)),
+            (crate::Method::Auto, None),
+            (crate::Method::GncTls, None),
+            (crate::Method::Lud, None),
+            (crate::Method::Consensus, None),
+        ];
+        for (method, start) in cases {
+            let outcome = solver.solve(&pairs, method, start.as_ref()).unwrap();
+            let gate = solver.final_gate().unwrap_or_else(|| panic!("{method}: no final gate"));
+            let mut gated = Verdict::default();
+            assess_gated_into(&mut gated, &solver.loaded(), &gate, true);
+            let fresh = assess(&pairs, &outcome.q, k);
+            assert_eq!(gated.inliers, fresh.inliers, "{method}");
+            assert_eq!(gated.n_inliers, 90, "{method}");
+            assert_eq!(gated.observability, fresh.observability, "{method}");
+            for (g, f) in gated.residuals.iter().zip(&fresh.residuals) {
+                assert!((g - f).abs() <= 1e-15 + 1e-12 * f, "{method}: {g:e} vs {f:e}");
+            }
+            // Fully observable: `F` is summed from the same `b` and `σ⁻²`, exactly.
+            assert_eq!(gated.observability, Observability::Full);
+            assert_eq!(gated.covariance, fresh.covariance, "{method}");
+        }
+        // The closed forms gate nothing.
+        solver.solve(&pairs, crate::Method::Ls, None).unwrap();
+        assert!(solver.final_gate().is_none());
     }
 
     #[test]

@@ -89,7 +89,8 @@ pub use config::{
 
 use crate::solve::{Pair, SolveError, Solver};
 use crate::verdict::{
-    assess_into, assess_loaded_into, Observability, Verdict, UNOBSERVABLE_VARIANCE,
+    assess_gated_into, assess_into, assess_loaded_into, Observability, Verdict,
+    UNOBSERVABLE_VARIANCE,
 };
 use config::Checked;
 use propagate::{RateBuffer, RateSample};
@@ -728,12 +729,22 @@ impl Estimator {
                 .solve(&self.pairs, configured_method, warm.as_ref())
             {
                 Ok(outcome) => {
-                    assess_loaded_into(
-                        &mut self.verdict,
-                        &self.solver.loaded(),
-                        &outcome.q,
-                        residuals,
-                    );
+                    // A robust solve's final gate is the verdict's gate: no
+                    // pair is gated twice.
+                    match self.solver.final_gate() {
+                        Some(gate) => assess_gated_into(
+                            &mut self.verdict,
+                            &self.solver.loaded(),
+                            &gate,
+                            residuals,
+                        ),
+                        None => assess_loaded_into(
+                            &mut self.verdict,
+                            &self.solver.loaded(),
+                            &outcome.q,
+                            residuals,
+                        ),
+                    }
                     let verdict = &self.verdict;
                     let (method, iterations) = (outcome.method.as_str(), outcome.iterations);
                     match verdict.observability {

@@ -17,7 +17,7 @@
 
 use nalgebra::Matrix3;
 
-use super::refit::{better, finish, refit, score, REFIT_MAX_PASSES};
+use super::refit::{better, finish, refit, score, GateMarks, REFIT_MAX_PASSES};
 use super::{consensus, gnc, svd, Estimate, Method, SolveError, SolveParams, Workspace};
 
 /// A stage's result with its score.
@@ -56,7 +56,10 @@ pub(crate) fn solve(
             &ws.gate_chord2,
             a0,
             weights,
-            &mut ws.inl,
+            GateMarks {
+                inl: &mut ws.inl,
+                chord2: &mut ws.chord2,
+            },
             REFIT_MAX_PASSES,
         );
         iterations += r.passes.max(1);
@@ -72,6 +75,7 @@ pub(crate) fn solve(
             cost: r.cost,
         };
         if cand.count >= need {
+            ws.gated_a = r.gated.then_some(r.a);
             return Ok(Estimate {
                 iterations,
                 ..cand.est
@@ -135,8 +139,12 @@ fn finalize(
     weights: &mut [f64],
 ) -> Result<Estimate, SolveError> {
     for (i, p) in ws.pairs.iter().enumerate() {
-        let is_in = super::refit::chord2(&est.a, p) <= ws.gate_chord2[i];
+        let e2 = super::refit::chord2(&est.a, p);
+        let is_in = e2 <= ws.gate_chord2[i];
         weights[i] = if is_in { ws.inv_var[i] } else { 0.0 };
+        ws.inl[i] = is_in;
+        ws.chord2[i] = e2;
     }
+    ws.gated_a = Some(est.a);
     Ok(Estimate { iterations, ..est })
 }

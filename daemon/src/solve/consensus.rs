@@ -36,7 +36,7 @@ use nalgebra::Matrix3;
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
-use super::refit::{better, refit, score};
+use super::refit::{better, refit, score, GateMarks};
 use super::triad::{triad_pair, TRIAD_MIN_SIN};
 use super::{Estimate, Method, SolveError, SolveParams, Workspace};
 
@@ -82,7 +82,10 @@ impl Search<'_> {
                 &ws.gate_chord2,
                 a,
                 &mut ws.work_w,
-                &mut ws.inl,
+                GateMarks {
+                    inl: &mut ws.inl,
+                    chord2: &mut ws.chord2,
+                },
                 LOCAL_REFIT_PASSES,
             );
             self.refits += r.passes;

@@ -237,6 +237,11 @@ pub(crate) struct Workspace {
     pub resid: Vec<f64>,
     /// Inlier flags of the current refit set.
     pub inl: Vec<bool>,
+    /// Squared chords `‖b_i − A r_i‖²` of the last gate, at `gated_a`.
+    pub chord2: Vec<f64>,
+    /// The rotation `inl` and `chord2` were gated at, when they are of one
+    /// (`None` after loading, and when a refit fitted again after its last gate).
+    pub gated_a: Option<Matrix3<f64>>,
     /// Per-pair normalised residuals (GNC).
     pub rho: Vec<f64>,
     /// Structure-of-arrays copy of the pairs, `[b.x, b.y, b.z, r.x, r.y, r.z]`
@@ -294,6 +299,8 @@ impl Workspace {
         self.work_w.resize(n, 0.0);
         self.resid.resize(n, 0.0);
         self.inl.resize(n, false);
+        self.chord2.resize(n, 0.0);
+        self.gated_a = None;
         Ok(())
     }
 }
@@ -385,12 +392,25 @@ pub struct LoadedPairs<'a> {
     pub gate_chord2: &'a [f64],
 }
 
+/// A robust solve's final gate ([`Solver::final_gate`]).
+#[derive(Debug, Clone, Copy)]
+pub struct FinalGate<'a> {
+    /// The rotation gated at (the solve's result, as a matrix).
+    pub a: Matrix3<f64>,
+    /// Inlier flag of each loaded pair: `‖b_i − A r_i‖² ≤` its gate.
+    pub inliers: &'a [bool],
+    /// `‖b_i − A r_i‖²` of each loaded pair.
+    pub chord2: &'a [f64],
+}
+
 /// Reusable solver state: holds scratch buffers so steady-state solves do not allocate.
 #[derive(Debug, Clone, Default)]
 pub struct Solver {
     params: SolveParams,
     weights: Vec<f64>,
     ws: Workspace,
+    /// The rotation of the last successful solve.
+    last_a: Option<Matrix3<f64>>,
 }
 
 impl Solver {
@@ -400,6 +420,7 @@ impl Solver {
             params,
             weights: Vec::new(),
             ws: Workspace::default(),
+            last_a: None,
         }
     }
 
@@ -427,6 +448,20 @@ impl Solver {
         &self.ws.gate_chord2
     }
 
+    /// The robust methods' final gate, when the last solve's rotation is
+    /// the one it gated at (the robust methods and `auto`, unless a refit hit
+    /// its pass cap; never the closed forms): the inlier flags and squared
+    /// chords of every loaded pair at that rotation, which is the one the
+    /// outcome's quaternion was made from.
+    pub fn final_gate(&self) -> Option<FinalGate<'_>> {
+        let a = self.ws.gated_a.filter(|a| Some(*a) == self.last_a)?;
+        Some(FinalGate {
+            a,
+            inliers: &self.ws.inl,
+            chord2: &self.ws.chord2,
+        })
+    }
+
     /// The pairs of the last solve as validated and normalised, with their
     /// `σ⁻²` and gates: all of them when the solve got past validation
     /// (see [`crate::verdict::assess_loaded_into`]).
@@ -450,6 +485,7 @@ impl Solver {
         method: Method,
         warm: Option<&UnitQuaternion<f64>>,
     ) -> Result<Outcome, SolveError> {
+        self.last_a = None;
         self.params.validate()?;
         self.ws.load(pairs, self.params.gate_k)?;
         let n = pairs.len();
@@ -511,6 +547,7 @@ impl Solver {
                 "{method} produced a non-rotation"
             )));
         }
+        self.last_a = Some(est.a);
         Ok(Outcome {
             q: rotation::quat_from_matrix(&est.a),
             iterations: est.iterations,

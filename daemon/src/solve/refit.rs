@@ -31,6 +31,8 @@ pub(crate) struct Refit {
     pub n_inliers: usize,
     /// `Σ_inliers ‖b_i − A r_i‖² σ_i⁻²` at `a` (tie-breaks between hypotheses).
     pub cost: f64,
+    /// Whether the last gate was at `a` (its marks are those of `a`).
+    pub gated: bool,
 }
 
 /// Squared chord residual `‖b − A r‖²`.
@@ -63,15 +65,23 @@ pub(crate) fn better(count: usize, cost: f64, best_count: usize, best_cost: f64)
     count > best_count || (count == best_count && cost < best_cost)
 }
 
-/// Gates at `a` into `weights`/`inl`; returns (inliers, whether the set
-/// changed, cost, profile matrix of the set).
+/// Where a gate writes its marks: the inlier flags and the squared chords.
+pub(crate) struct GateMarks<'a> {
+    /// Inlier flag of each pair.
+    pub inl: &'a mut [bool],
+    /// `‖b_i − A r_i‖²` of each pair.
+    pub chord2: &'a mut [f64],
+}
+
+/// Gates at `a` into `weights` and `marks`; returns (inliers, whether the
+/// set changed, cost, profile matrix of the set).
 fn gate(
     pairs: &[Pair],
     inv_var: &[f64],
     gate_chord2: &[f64],
     a: &Matrix3<f64>,
     weights: &mut [f64],
-    inl: &mut [bool],
+    marks: &mut GateMarks<'_>,
 ) -> (usize, bool, f64, Matrix3<f64>) {
     let mut count = 0;
     let mut changed = false;
@@ -81,8 +91,9 @@ fn gate(
         let p = &pairs[i];
         let e2 = chord2(a, p);
         let is_in = e2 <= gate_chord2[i];
-        changed |= is_in != inl[i];
-        inl[i] = is_in;
+        changed |= is_in != marks.inl[i];
+        marks.inl[i] = is_in;
+        marks.chord2[i] = e2;
         if is_in {
             count += 1;
             cost += e2 * inv_var[i];
@@ -96,18 +107,21 @@ fn gate(
 }
 
 /// Refits from `a0` on the gate inliers (see the module doc for the rule).
-/// On return `weights`/`inl` hold the set `a` was fitted on.
+/// On return `weights`/`marks.inl` hold the set `a` was fitted on, and
+/// `marks` the gate at `a` itself when [`Refit::gated`].
 pub(crate) fn refit(
     pairs: &[Pair],
     inv_var: &[f64],
     gate_chord2: &[f64],
     a0: Matrix3<f64>,
     weights: &mut [f64],
-    inl: &mut [bool],
+    mut marks: GateMarks<'_>,
     max_passes: u32,
 ) -> Refit {
     let mut a = a0;
-    let (mut n_in, _, mut cost, mut profile) = gate(pairs, inv_var, gate_chord2, &a, weights, inl);
+    let (mut n_in, _, mut cost, mut profile) =
+        gate(pairs, inv_var, gate_chord2, &a, weights, &mut marks);
+    let mut gated = true;
     let mut passes = 0;
     let mut stable = false;
     while n_in >= 2 && passes < max_passes {
@@ -116,7 +130,7 @@ pub(crate) fn refit(
         };
         passes += 1;
         let (n_new, changed, cost_new, profile_new) =
-            gate(pairs, inv_var, gate_chord2, &a_new, weights, inl);
+            gate(pairs, inv_var, gate_chord2, &a_new, weights, &mut marks);
         a = a_new;
         n_in = n_new;
         cost = cost_new;
@@ -130,6 +144,7 @@ pub(crate) fn refit(
         // The cap was hit with a changed set: fit once more so `a` matches `weights`.
         if let Ok(a_new) = nearest_rotation(&profile) {
             a = a_new;
+            gated = false;
             passes += 1;
             cost = score(pairs, inv_var, gate_chord2, &a).1;
         }
@@ -140,6 +155,7 @@ pub(crate) fn refit(
         stable,
         n_inliers: n_in,
         cost,
+        gated,
     }
 }
 
@@ -151,9 +167,13 @@ pub(crate) fn finish(ws: &mut Workspace, est: Estimate, weights: &mut [f64]) -> 
         &ws.gate_chord2,
         est.a,
         weights,
-        &mut ws.inl,
+        GateMarks {
+            inl: &mut ws.inl,
+            chord2: &mut ws.chord2,
+        },
         REFIT_MAX_PASSES,
     );
+    ws.gated_a = r.gated.then_some(r.a);
     Estimate {
         a: r.a,
         iterations: est.iterations + r.passes,
