@@ -609,7 +609,11 @@ mod tests {
                     .normalize();
                 let sigma = [1e-4, 1e-3, 1e-2][i % 3];
                 let axis = r.cross(&Vector3::new(0.3, 0.1, -0.9)).normalize();
-                let angle = if i % 4 == 1 { 0.3 + 0.01 * x } else { 0.8 * sigma * (0.618 * x).fract() };
+                let angle = if i % 4 == 1 {
+                    0.3 + 0.01 * x
+                } else {
+                    0.8 * sigma * (0.618 * x).fract()
+                };
                 let b = q * (UnitQuaternion::from_scaled_axis(axis * angle) * r);
                 Pair { b, r, sigma }
             })
@@ -626,7 +630,9 @@ mod tests {
         ];
         for (method, start) in cases {
             let outcome = solver.solve(&pairs, method, start.as_ref()).unwrap();
-            let gate = solver.final_gate().unwrap_or_else(|| panic!("{method}: no final gate"));
+            let gate = solver
+                .final_gate()
+                .unwrap_or_else(|| panic!("{method}: no final gate"));
             let mut gated = Verdict::default();
             assess_gated_into(&mut gated, &solver.loaded(), &gate, true);
             let fresh = assess(&pairs, &outcome.q, k);
@@ -634,7 +640,10 @@ mod tests {
             assert_eq!(gated.n_inliers, 90, "{method}");
             assert_eq!(gated.observability, fresh.observability, "{method}");
             for (g, f) in gated.residuals.iter().zip(&fresh.residuals) {
-                assert!((g - f).abs() <= 1e-15 + 1e-12 * f, "{method}: {g:e} vs {f:e}");
+                assert!(
+                    (g - f).abs() <= 1e-15 + 1e-12 * f,
+                    "{method}: {g:e} vs {f:e}"
+                );
             }
             // Fully observable: `F` is summed from the same `b` and `σ⁻²`, exactly.
             assert_eq!(gated.observability, Observability::Full);
