@@ -807,7 +807,7 @@ impl Estimator {
         let inliers = &self.verdict.inliers;
         let is_inlier = |pair_idx: usize| inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
         // `aged` only after a successful solve of these pairs, whose σ⁻² the solver kept.
-        let inv_var = self.solver.inverse_variances();
+        let inv_var = self.solver.loaded().inv_var;
         for (pair_idx, obs) in self.obs.iter_range(range.clone()).enumerate() {
             if is_inlier(pair_idx) {
                 self.counts[obs.sensor_idx as usize].1 += 1;

@@ -436,18 +436,6 @@ impl Solver {
         &self.weights
     }
 
-    /// `σ_i⁻²` of the pairs of the last solve that got past validation
-    /// (`1 / (σ_i σ_i)`, computed once per solve).
-    pub fn inverse_variances(&self) -> &[f64] {
-        &self.ws.inv_var
-    }
-
-    /// Squared-chord gates `(2 sin(min(k σ_i, π)/2))²` of the pairs of the
-    /// last solve that got past validation.
-    pub fn gate_chord2s(&self) -> &[f64] {
-        &self.ws.gate_chord2
-    }
-
     /// The robust methods' final gate, when the last solve's rotation is
     /// the one it gated at (the robust methods and `auto`, unless a refit hit
     /// its pass cap; never the closed forms): the inlier flags and squared
