@@ -59,6 +59,7 @@ pub(crate) fn solve(
             GateMarks {
                 inl: &mut ws.inl,
                 chord2: &mut ws.chord2,
+                gated_a: &mut ws.gated_a,
             },
             REFIT_MAX_PASSES,
         );
@@ -75,7 +76,6 @@ pub(crate) fn solve(
             cost: r.cost,
         };
         if cand.count >= need {
-            ws.gated_a = r.gated.then_some(r.a);
             return Ok(Estimate {
                 iterations,
                 ..cand.est

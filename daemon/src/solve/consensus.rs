@@ -85,6 +85,7 @@ impl Search<'_> {
                 GateMarks {
                     inl: &mut ws.inl,
                     chord2: &mut ws.chord2,
+                    gated_a: &mut ws.gated_a,
                 },
                 LOCAL_REFIT_PASSES,
             );

@@ -65,12 +65,15 @@ pub(crate) fn better(count: usize, cost: f64, best_count: usize, best_cost: f64)
     count > best_count || (count == best_count && cost < best_cost)
 }
 
-/// Where a gate writes its marks: the inlier flags and the squared chords.
+/// Where a gate writes its marks: the inlier flags and the squared chords,
+/// and the rotation they are of (set by [`refit`] when it returns).
 pub(crate) struct GateMarks<'a> {
     /// Inlier flag of each pair.
     pub inl: &'a mut [bool],
     /// `‖b_i − A r_i‖²` of each pair.
     pub chord2: &'a mut [f64],
+    /// The rotation `inl` and `chord2` are of, or `None`.
+    pub gated_a: &'a mut Option<Matrix3<f64>>,
 }
 
 /// Gates at `a` into `weights` and `marks`; returns (inliers, whether the
@@ -108,7 +111,8 @@ fn gate(
 
 /// Refits from `a0` on the gate inliers (see the module doc for the rule).
 /// On return `weights`/`marks.inl` hold the set `a` was fitted on, and
-/// `marks` the gate at `a` itself when [`Refit::gated`].
+/// `marks` the gate at `a` itself when [`Refit::gated`] (`marks.gated_a`
+/// says so: `Some(a)`, else `None`).
 pub(crate) fn refit(
     pairs: &[Pair],
     inv_var: &[f64],
@@ -149,6 +153,7 @@ pub(crate) fn refit(
             cost = score(pairs, inv_var, gate_chord2, &a).1;
         }
     }
+    *marks.gated_a = gated.then_some(a);
     Refit {
         a,
         passes,
@@ -170,10 +175,10 @@ pub(crate) fn finish(ws: &mut Workspace, est: Estimate, weights: &mut [f64]) -> 
         GateMarks {
             inl: &mut ws.inl,
             chord2: &mut ws.chord2,
+            gated_a: &mut ws.gated_a,
         },
         REFIT_MAX_PASSES,
     );
-    ws.gated_a = r.gated.then_some(r.a);
     Estimate {
         a: r.a,
         iterations: est.iterations + r.passes,
