@@ -124,12 +124,12 @@ pub fn assess_loaded_into(
     q: &UnitQuaternion<f64>,
     residuals: bool,
 ) {
-    let LoadedPairs {
-        pairs,
-        inv_var,
-        gate_chord2,
-    } = *loaded;
-    let n = pairs.len().min(inv_var.len()).min(gate_chord2.len());
+    let (n, pairs, inv_var, gate_chord2) = (
+        loaded.len(),
+        loaded.pairs,
+        loaded.inv_var,
+        loaded.gate_chord2,
+    );
     judge(v, n, q, residuals, |i| {
         // A chord is at most 2: a gate of 4 or more passes every pair.
         let gate = if gate_chord2[i] >= 4.0 {
@@ -252,17 +252,12 @@ pub fn assess_gated_into(
     gate: &FinalGate<'_>,
     residuals: bool,
 ) {
+    let n = loaded.len().min(gate.inliers.len()).min(gate.chord2.len());
     let LoadedPairs {
         pairs,
         inv_var,
         gate_chord2,
     } = *loaded;
-    let n = pairs
-        .len()
-        .min(inv_var.len())
-        .min(gate_chord2.len())
-        .min(gate.inliers.len())
-        .min(gate.chord2.len());
     v.residuals.clear();
     v.inliers.clear();
     let (mut info, mut geometry) = (Spread::default(), Spread::default());

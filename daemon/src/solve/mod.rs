@@ -392,6 +392,21 @@ pub struct LoadedPairs<'a> {
     pub gate_chord2: &'a [f64],
 }
 
+impl LoadedPairs<'_> {
+    /// Pairs loaded (with their `σ⁻²` and gate each).
+    pub fn len(&self) -> usize {
+        self.pairs
+            .len()
+            .min(self.inv_var.len())
+            .min(self.gate_chord2.len())
+    }
+
+    /// Whether no pair is loaded.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
 /// A robust solve's final gate ([`Solver::final_gate`]).
 #[derive(Debug, Clone, Copy)]
 pub struct FinalGate<'a> {
