@@ -257,8 +257,7 @@ pub struct Estimator {
     inlier_alert: LevelAlert,
     unobservable_alert: LevelAlert,
     stats: Stats,
-    // Scratch reused every epoch.
-    pairs: Vec<Pair>,
+    // Scratch reused every epoch (the pairs live in the solver's buffer).
     counts: Vec<(u32, u32)>,
     present_before: Vec<bool>,
     verdict: Verdict,
@@ -315,7 +314,6 @@ impl Estimator {
                 alerts.unobservable_hold_ms as i64 * 1_000_000,
             ),
             stats: Stats::default(),
-            pairs: Vec::with_capacity(config.max_window_obs),
             counts: Vec::with_capacity(config.max_sensors),
             present_before: Vec::with_capacity(config.max_sensors),
             verdict: Verdict::default(),
@@ -646,45 +644,46 @@ impl Estimator {
         // Pairs at the epoch, per-sensor presence. Each observation's `b` at
         // the rates' anchor time is kept between epochs while it is settled,
         // so an epoch costs one rotation `K(E)` and a matrix product per pair.
-        self.pairs.clear();
         self.counts.clear();
         self.counts.resize(self.sensors.len(), (0, 0));
         let arw2 = self.config.gyro_arw * self.config.gyro_arw;
         let to_epoch = propagated.then(|| self.rates.anchored(epoch).to_rotation_matrix());
         let (generation, settled_before) = (self.rates.generation(), self.rates.settled_before());
         // One `extend` over an iterator of known length: no capacity check per pair.
+        // Written straight into the solver's buffer: no copy of the window.
         let (rates, counts) = (&self.rates, &mut self.counts);
-        self.pairs
-            .extend(self.obs.iter_range_mut(range.clone()).map(|obs| {
-                counts[obs.sensor_idx as usize].0 += 1;
-                let (b, sigma) = match &to_epoch {
-                    Some(k_epoch) => {
-                        if obs.anchored_gen != generation {
-                            obs.anchored_b = rates.anchored(obs.t).inverse_transform_vector(&obs.b);
-                            // Kept for later epochs only where `K` is settled.
-                            obs.anchored_gen = if obs.t < settled_before {
-                                generation
-                            } else {
-                                0
-                            };
-                        }
-                        // The variance for now: its square root is taken in a
-                        // loop of its own below, where the roots overlap.
-                        let dt_s = (epoch - obs.t) as f64 * S_PER_NS;
-                        (
-                            k_epoch * obs.anchored_b,
-                            obs.sigma * obs.sigma + arw2 * dt_s,
-                        )
+        let pairs = self.solver.pair_buffer();
+        pairs.extend(self.obs.iter_range_mut(range.clone()).map(|obs| {
+            counts[obs.sensor_idx as usize].0 += 1;
+            let (b, sigma) = match &to_epoch {
+                Some(k_epoch) => {
+                    if obs.anchored_gen != generation {
+                        obs.anchored_b = rates.anchored(obs.t).inverse_transform_vector(&obs.b);
+                        // Kept for later epochs only where `K` is settled.
+                        obs.anchored_gen = if obs.t < settled_before {
+                            generation
+                        } else {
+                            0
+                        };
                     }
-                    None => (obs.b, obs.sigma),
-                };
-                Pair { b, r: obs.r, sigma }
-            }));
+                    // The variance for now: its square root is taken in a
+                    // loop of its own below, where the roots overlap.
+                    let dt_s = (epoch - obs.t) as f64 * S_PER_NS;
+                    (
+                        k_epoch * obs.anchored_b,
+                        obs.sigma * obs.sigma + arw2 * dt_s,
+                    )
+                }
+                None => (obs.b, obs.sigma),
+            };
+            Pair { b, r: obs.r, sigma }
+        }));
         if propagated {
-            for pair in &mut self.pairs {
+            for pair in pairs.iter_mut() {
                 pair.sigma = pair.sigma.sqrt();
             }
         }
+        let n = pairs.len();
         let geometry_changed = self.present_before.len() != self.counts.len()
             || self
                 .present_before
@@ -701,7 +700,6 @@ impl Estimator {
         } else {
             carried
         };
-        let n = self.pairs.len();
         let configured_method = self.config.method;
         let level = self.config.alerts.inlier_fraction.level;
         let huge = Matrix3::identity() * UNOBSERVABLE_VARIANCE;
@@ -724,10 +722,7 @@ impl Estimator {
                 directions,
             )
         } else {
-            match self
-                .solver
-                .solve(&self.pairs, configured_method, warm.as_ref())
-            {
+            match self.solver.solve_in_place(configured_method, warm.as_ref()) {
                 Ok(outcome) => {
                     // A robust solve's final gate is the verdict's gate: no
                     // pair is gated twice.
@@ -873,7 +868,14 @@ impl Estimator {
 
     /// The verdict of the fallback attitude when no solve gave one (no solver gates).
     fn assess_unsolved(&mut self, q: &UnitQuaternion<f64>, gate_k: f64, residuals: bool) {
-        assess_into(&mut self.verdict, &self.pairs, q, gate_k, residuals);
+        // The solver's buffer holds the epoch's pairs even when it refused them.
+        assess_into(
+            &mut self.verdict,
+            self.solver.loaded().pairs,
+            q,
+            gate_k,
+            residuals,
+        );
     }
 
     fn judge_epoch_alerts(
@@ -982,6 +984,7 @@ fn alert(
 /// `Σ σ_i⁻² (E − t_i) / Σ σ_i⁻²` over the pairs added (0 with none).
 #[derive(Debug, Clone, Copy, Default)]
 struct InlierAge {
+    /// `Σ σ_i⁻² (E − t_i)`, ns.
     weighted: f64,
     total: f64,
 }
@@ -990,13 +993,14 @@ impl InlierAge {
     /// Adds a pair of weight `w = σ⁻²` (propagated σ) measured `age_ns` before the epoch.
     #[inline]
     fn add(&mut self, w: f64, age_ns: i64) {
-        self.weighted += w * age_ns as f64 / NS_PER_S;
+        // In ns: one division at the end, not one per pair.
+        self.weighted += w * age_ns as f64;
         self.total += w;
     }
 
     fn mean_s(&self) -> f64 {
         if self.total > 0.0 {
-            self.weighted / self.total
+            self.weighted / self.total / NS_PER_S
         } else {
             0.0
         }

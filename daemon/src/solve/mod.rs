@@ -252,10 +252,7 @@ pub(crate) struct Workspace {
 impl Workspace {
     /// Validates and normalises `pairs` into the workspace.
     fn load(&mut self, pairs: &[Pair], gate_k: f64) -> Result<(), SolveError> {
-        let n = pairs.len();
         self.pairs.clear();
-        self.inv_var.clear();
-        self.gate_chord2.clear();
         // One `extend` writes the pairs in place (a `push` per pair built each
         // on the stack and copied it); the first invalid pair is the error.
         let mut invalid = None;
@@ -285,6 +282,47 @@ impl Workspace {
         if let Some(err) = invalid {
             return Err(err);
         }
+        self.weigh(gate_k);
+        Ok(())
+    }
+
+    /// [`Workspace::load`] for pairs written into `self.pairs` by the caller:
+    /// the same checks, but a vector already unit to within
+    /// [`IN_PLACE_UNIT_TOL`] in squared norm is kept as it is, so pairs
+    /// checked before (the estimator's, normalised at the door and only
+    /// rotated since) cost no square root and no copy.
+    fn prepare_in_place(&mut self, gate_k: f64) -> Result<(), SolveError> {
+        let near_unit = |v: &Vector3<f64>| (v.norm_squared() - 1.0).abs() <= IN_PLACE_UNIT_TOL;
+        // Branch-free test of every pair first; the rare misfit is redone below.
+        let mut all_fine = true;
+        for p in &self.pairs {
+            all_fine &= (p.sigma.is_finite() & (p.sigma > 0.0)) & near_unit(&p.b) & near_unit(&p.r);
+        }
+        if !all_fine {
+            for (index, p) in self.pairs.iter_mut().enumerate() {
+                if !(p.sigma.is_finite() && p.sigma > 0.0) {
+                    return Err(SolveError::InvalidPair {
+                        index,
+                        reason: "sigma must be finite and > 0",
+                    });
+                }
+                for v in [&mut p.b, &mut p.r] {
+                    if !near_unit(v) {
+                        *v = unit(v).map_err(|reason| SolveError::InvalidPair { index, reason })?;
+                    }
+                }
+            }
+        }
+        self.weigh(gate_k);
+        Ok(())
+    }
+
+    /// The per-pair weights and gates of the loaded pairs, and the scratch
+    /// arrays sized to them.
+    fn weigh(&mut self, gate_k: f64) {
+        let n = self.pairs.len();
+        self.inv_var.clear();
+        self.gate_chord2.clear();
         self.inv_var
             .extend(self.pairs.iter().map(|p| 1.0 / (p.sigma * p.sigma)));
         // Consecutive pairs usually share a σ (one sensor): reuse its gate.
@@ -301,9 +339,13 @@ impl Workspace {
         self.inl.resize(n, false);
         self.chord2.resize(n, 0.0);
         self.gated_a = None;
-        Ok(())
     }
 }
+
+/// Squared-norm tolerance within which [`Solver::solve_in_place`] takes a
+/// vector as unit: 16 ε, a length off by at most about 2e-15 (a vector
+/// normalised once and rotated twice is off by a few ε).
+pub const IN_PLACE_UNIT_TOL: f64 = 16.0 * f64::EPSILON;
 
 /// Gate angle up to which [`gate_chord2`] uses its series, rad.
 const GATE_SERIES_MAX: f64 = 0.2;
@@ -491,7 +533,40 @@ impl Solver {
         self.last_a = None;
         self.params.validate()?;
         self.ws.load(pairs, self.params.gate_k)?;
-        let n = pairs.len();
+        self.solve_loaded(method, warm)
+    }
+
+    /// The solver's own pair buffer, emptied, for a caller that builds its
+    /// pairs in place and then calls [`Solver::solve_in_place`] (no copy of
+    /// the window per solve). Until then [`Solver::loaded`] is not valid.
+    pub fn pair_buffer(&mut self) -> &mut Vec<Pair> {
+        self.last_a = None;
+        self.ws.pairs.clear();
+        &mut self.ws.pairs
+    }
+
+    /// [`Solver::solve`] on the pairs written into [`Solver::pair_buffer`],
+    /// with the same checks; a vector within [`IN_PLACE_UNIT_TOL`] of unit
+    /// length is used as it is, any other is normalised in place. An invalid
+    /// pair is refused as by `solve`, and the buffer keeps the pairs.
+    pub fn solve_in_place(
+        &mut self,
+        method: Method,
+        warm: Option<&UnitQuaternion<f64>>,
+    ) -> Result<Outcome, SolveError> {
+        self.last_a = None;
+        self.params.validate()?;
+        self.ws.prepare_in_place(self.params.gate_k)?;
+        self.solve_loaded(method, warm)
+    }
+
+    /// The solve proper, on the pairs loaded and weighed.
+    fn solve_loaded(
+        &mut self,
+        method: Method,
+        warm: Option<&UnitQuaternion<f64>>,
+    ) -> Result<Outcome, SolveError> {
+        let n = self.ws.pairs.len();
         self.weights.clear();
         self.weights.resize(n, 0.0);
         if n < 2 {
@@ -605,6 +680,37 @@ mod tests {
                 }
             })
             .collect()
+    }
+
+    #[test]
+    fn in_place_solve_matches_the_copying_solve_and_refuses_the_same_pairs() {
+        // Derived in the test: the in-place path must give `solve`'s
+        // rotation (to rounding) on pairs with vectors off unit length, and
+        // refuse a zero vector with the same error.
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        let q = UnitQuaternion::from_scaled_axis(unit(&mut rng) * 1.3);
+        let mut pairs = clean_pairs(&mut rng, &q, 40);
+        pairs[3].b *= 2.5;
+        pairs[7].r *= 0.3;
+        for method in [Method::Ls, Method::Auto] {
+            let mut copying = Solver::new(SolveParams::default());
+            let want = copying.solve(&pairs, method, None).unwrap();
+            let mut in_place = Solver::new(SolveParams::default());
+            in_place.pair_buffer().extend_from_slice(&pairs);
+            let got = in_place.solve_in_place(method, None).unwrap();
+            let angle = want.q.angle_to(&got.q);
+            assert!(angle < 1e-14, "{method}: {angle:e}");
+            assert!((in_place.loaded().pairs[3].b.norm() - 1.0).abs() < 1e-15);
+            assert!((in_place.loaded().pairs[7].r.norm() - 1.0).abs() < 1e-15);
+        }
+        pairs[5].r = Vector3::zeros();
+        let mut copying = Solver::new(SolveParams::default());
+        let mut in_place = Solver::new(SolveParams::default());
+        in_place.pair_buffer().extend_from_slice(&pairs);
+        assert_eq!(
+            in_place.solve_in_place(Method::Ls, None).unwrap_err(),
+            copying.solve(&pairs, Method::Ls, None).unwrap_err()
+        );
     }
 
     #[test]
