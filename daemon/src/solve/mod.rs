@@ -538,7 +538,8 @@ impl Solver {
 
     /// The solver's own pair buffer, emptied, for a caller that builds its
     /// pairs in place and then calls [`Solver::solve_in_place`] (no copy of
-    /// the window per solve). Until then [`Solver::loaded`] is not valid.
+    /// the window per solve). Until then only the `pairs` of
+    /// [`Solver::loaded`] are current (its weights and gates are the last solve's).
     pub fn pair_buffer(&mut self) -> &mut Vec<Pair> {
         self.last_a = None;
         self.ws.pairs.clear();
