@@ -260,18 +260,23 @@ pub fn assess_gated_into(
     } = *loaded;
     v.residuals.clear();
     v.inliers.clear();
+    // The solver's gate caps the angle at `π` (a squared chord of 4),
+    // where a chord rounded just past 2 would fail it; here any passes.
+    v.inliers.extend(
+        gate.inliers[..n]
+            .iter()
+            .zip(&gate_chord2[..n])
+            .map(|(&inl, &g)| inl | (g >= 4.0)),
+    );
     let (mut info, mut geometry) = (Spread::default(), Spread::default());
     let mut n_inliers = 0;
-    for i in 0..n {
-        // The solver's gate caps the angle at `π` (a squared chord of 4),
-        // where a chord rounded just past 2 would fail it; here any passes.
-        let inlier = gate.inliers[i] || gate_chord2[i] >= 4.0;
-        v.inliers.push(inlier);
-        if inlier {
-            n_inliers += 1;
-            info.add(inv_var[i], &pairs[i].b);
-            geometry.add(inv_var[i], &pairs[i].r);
-        }
+    // Branch-free, as in the solver's gate: an outlier adds its pair at
+    // weight 0, which leaves the sums as they are (the pairs are finite).
+    for ((p, &w), &inlier) in pairs[..n].iter().zip(&inv_var[..n]).zip(&v.inliers) {
+        let w = if inlier { w } else { 0.0 };
+        n_inliers += inlier as usize;
+        info.add(w, &p.b);
+        geometry.add(w, &p.r);
     }
     if residuals {
         v.residuals.extend_from_slice(&gate.chord2[..n]);

@@ -87,7 +87,7 @@ pub use config::{
     AlertsConfig, ConfigError, EstimatorConfig, LevelConfig, SensorConfig, SensorKind,
 };
 
-use crate::solve::{Pair, SolveError, Solver};
+use crate::solve::{weigh_pair, Pair, SolveError, Solver};
 use crate::verdict::{
     assess_gated_into, assess_into, assess_loaded_into, Observability, Verdict,
     UNOBSERVABLE_VARIANCE,
@@ -649,11 +649,27 @@ impl Estimator {
         let arw2 = self.config.gyro_arw * self.config.gyro_arw;
         let to_epoch = propagated.then(|| self.rates.anchored(epoch).to_rotation_matrix());
         let (generation, settled_before) = (self.rates.generation(), self.rates.settled_before());
-        // One `extend` over an iterator of known length: no capacity check per pair.
-        // Written straight into the solver's buffer: no copy of the window.
+        // Written straight into the solver's buffers, sized first (no
+        // capacity check per pair, no copy of the window).
         let (rates, counts) = (&self.rates, &mut self.counts);
-        let pairs = self.solver.pair_buffer();
-        pairs.extend(self.obs.iter_range_mut(range.clone()).map(|obs| {
+        // Each pair is weighed as it is written (σ, `σ⁻²` and gate in the
+        // same pass): the solver does not weigh the window again.
+        let buf = self.solver.weighed_buffer();
+        let solver_gate_k = buf.gate_k;
+        let len = range.len();
+        let blank = Pair {
+            b: Vector3::zeros(),
+            r: Vector3::zeros(),
+            sigma: 0.0,
+        };
+        buf.pairs.resize(len, blank);
+        buf.inv_var.resize(len, 0.0);
+        buf.gate_chord2.resize(len, 0.0);
+        let slots = buf
+            .pairs
+            .iter_mut()
+            .zip(buf.inv_var.iter_mut().zip(buf.gate_chord2.iter_mut()));
+        for (obs, (pair, (inv_var, gate))) in self.obs.iter_range_mut(range.clone()).zip(slots) {
             counts[obs.sensor_idx as usize].0 += 1;
             let (b, sigma) = match &to_epoch {
                 Some(k_epoch) => {
@@ -666,23 +682,18 @@ impl Estimator {
                             0
                         };
                     }
-                    // The variance for now: its square root is taken in a
-                    // loop of its own below, where the roots overlap.
                     let dt_s = (epoch - obs.t) as f64 * S_PER_NS;
                     (
                         k_epoch * obs.anchored_b,
-                        obs.sigma * obs.sigma + arw2 * dt_s,
+                        (obs.sigma * obs.sigma + arw2 * dt_s).sqrt(),
                     )
                 }
                 None => (obs.b, obs.sigma),
             };
-            Pair { b, r: obs.r, sigma }
-        }));
-        if propagated {
-            for pair in pairs.iter_mut() {
-                pair.sigma = pair.sigma.sqrt();
-            }
+            *pair = Pair { b, r: obs.r, sigma };
+            (*inv_var, *gate) = weigh_pair(sigma, solver_gate_k);
         }
+        let pairs = &*buf.pairs;
         let n = pairs.len();
         let geometry_changed = self.present_before.len() != self.counts.len()
             || self
@@ -722,7 +733,7 @@ impl Estimator {
                 directions,
             )
         } else {
-            match self.solver.solve_in_place(configured_method, warm.as_ref()) {
+            match self.solver.solve_weighed(configured_method, warm.as_ref()) {
                 Ok(outcome) => {
                     // A robust solve's final gate is the verdict's gate: no
                     // pair is gated twice.

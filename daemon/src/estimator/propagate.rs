@@ -101,7 +101,13 @@ impl RateBuffer {
             self.samples.pop_front();
             self.generation += 1;
         }
-        let at = self.samples.partition_point(|h| h.sample.t <= sample.t);
+        // In time order (the usual case) the sample goes last: no search.
+        let at = match self.samples.back() {
+            Some(last) if last.sample.t > sample.t => {
+                self.samples.partition_point(|h| h.sample.t <= sample.t)
+            }
+            _ => self.samples.len(),
+        };
         self.samples.insert(
             at,
             Held {

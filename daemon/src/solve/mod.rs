@@ -292,6 +292,29 @@ impl Workspace {
     /// checked before (the estimator's, normalised at the door and only
     /// rotated since) cost no square root and no copy.
     fn prepare_in_place(&mut self, gate_k: f64) -> Result<(), SolveError> {
+        self.check_in_place()?;
+        self.weigh(gate_k);
+        Ok(())
+    }
+
+    /// [`Workspace::prepare_in_place`] for pairs whose `inv_var` and
+    /// `gate_chord2` the caller wrote beside them with [`weigh_pair`]: the
+    /// same checks, and the caller's weights and gates are used (weighed
+    /// again only if their lengths do not match the pairs').
+    fn prepare_weighed(&mut self, gate_k: f64) -> Result<(), SolveError> {
+        self.check_in_place()?;
+        let n = self.pairs.len();
+        if self.inv_var.len() != n || self.gate_chord2.len() != n {
+            self.weigh(gate_k);
+        } else {
+            self.size_scratch();
+        }
+        Ok(())
+    }
+
+    /// The checks of [`Workspace::prepare_in_place`]: σ finite and `> 0`,
+    /// vectors unit (a misfit normalised in place, a zero or non-finite one refused).
+    fn check_in_place(&mut self) -> Result<(), SolveError> {
         let near_unit = |v: &Vector3<f64>| (v.norm_squared() - 1.0).abs() <= IN_PLACE_UNIT_TOL;
         // Branch-free test of every pair first; the rare misfit is redone below.
         let mut all_fine = true;
@@ -313,33 +336,56 @@ impl Workspace {
                 }
             }
         }
-        self.weigh(gate_k);
         Ok(())
     }
 
     /// The per-pair weights and gates of the loaded pairs, and the scratch
     /// arrays sized to them.
     fn weigh(&mut self, gate_k: f64) {
-        let n = self.pairs.len();
         self.inv_var.clear();
         self.gate_chord2.clear();
         self.inv_var
-            .extend(self.pairs.iter().map(|p| 1.0 / (p.sigma * p.sigma)));
+            .extend(self.pairs.iter().map(|p| inv_var_of(p.sigma)));
         // Consecutive pairs usually share a σ (one sensor): reuse its gate.
         let (mut last_sigma, mut last_gate) = (f64::NAN, 0.0);
         self.gate_chord2.extend(self.pairs.iter().map(|p| {
             if p.sigma != last_sigma {
-                last_gate = gate_chord2((gate_k * p.sigma).min(std::f64::consts::PI));
+                last_gate = gate_of_sigma(p.sigma, gate_k);
                 last_sigma = p.sigma;
             }
             last_gate
         }));
+        self.size_scratch();
+    }
+
+    /// The per-pair scratch arrays sized to the loaded pairs.
+    fn size_scratch(&mut self) {
+        let n = self.pairs.len();
         self.work_w.resize(n, 0.0);
         self.resid.resize(n, 0.0);
         self.inl.resize(n, false);
         self.chord2.resize(n, 0.0);
         self.gated_a = None;
     }
+}
+
+/// A pair's weight `σ⁻²`, as every solve computes it.
+#[inline]
+pub(crate) fn inv_var_of(sigma: f64) -> f64 {
+    1.0 / (sigma * sigma)
+}
+
+/// A pair's squared-chord gate `(2 sin(min(k σ, π)/2))²` at multiplier `gate_k`.
+#[inline]
+pub(crate) fn gate_of_sigma(sigma: f64, gate_k: f64) -> f64 {
+    gate_chord2((gate_k * sigma).min(std::f64::consts::PI))
+}
+
+/// A pair's `(σ⁻², gate)` exactly as a solve weighs it, for a caller that
+/// writes them beside its pairs ([`Solver::weighed_buffer`]).
+#[inline]
+pub(crate) fn weigh_pair(sigma: f64, gate_k: f64) -> (f64, f64) {
+    (inv_var_of(sigma), gate_of_sigma(sigma, gate_k))
 }
 
 /// Squared-norm tolerance within which [`Solver::solve_in_place`] takes a
@@ -449,6 +495,15 @@ impl LoadedPairs<'_> {
     }
 }
 
+/// The buffers of [`Solver::weighed_buffer`]: entry `i` of `inv_var` and
+/// `gate_chord2` is [`weigh_pair`] of `pairs[i].sigma` at `gate_k`.
+pub(crate) struct WeighedBuffer<'a> {
+    pub pairs: &'a mut Vec<Pair>,
+    pub inv_var: &'a mut Vec<f64>,
+    pub gate_chord2: &'a mut Vec<f64>,
+    pub gate_k: f64,
+}
+
 /// A robust solve's final gate ([`Solver::final_gate`]).
 #[derive(Debug, Clone, Copy)]
 pub struct FinalGate<'a> {
@@ -544,6 +599,36 @@ impl Solver {
         self.last_a = None;
         self.ws.pairs.clear();
         &mut self.ws.pairs
+    }
+
+    /// The solver's pair, weight and gate buffers, emptied, and its gate
+    /// multiplier: for a caller in this crate that writes each pair with
+    /// its [`weigh_pair`] in one pass, then calls [`Solver::solve_weighed`].
+    pub(crate) fn weighed_buffer(&mut self) -> WeighedBuffer<'_> {
+        self.last_a = None;
+        self.ws.pairs.clear();
+        self.ws.inv_var.clear();
+        self.ws.gate_chord2.clear();
+        WeighedBuffer {
+            pairs: &mut self.ws.pairs,
+            inv_var: &mut self.ws.inv_var,
+            gate_chord2: &mut self.ws.gate_chord2,
+            gate_k: self.params.gate_k,
+        }
+    }
+
+    /// [`Solver::solve_in_place`] on the pairs, weights and gates written
+    /// into [`Solver::weighed_buffer`]: the same checks and the same
+    /// result, without weighing the pairs again.
+    pub(crate) fn solve_weighed(
+        &mut self,
+        method: Method,
+        warm: Option<&UnitQuaternion<f64>>,
+    ) -> Result<Outcome, SolveError> {
+        self.last_a = None;
+        self.params.validate()?;
+        self.ws.prepare_weighed(self.params.gate_k)?;
+        self.solve_loaded(method, warm)
     }
 
     /// [`Solver::solve`] on the pairs written into [`Solver::pair_buffer`],

@@ -99,8 +99,10 @@ pub(crate) struct GateMarks<'a> {
 }
 
 /// Gates at `a` into `weights` and `marks`; returns (inliers, whether the
-/// set changed, cost, profile matrix of the set).
-fn gate(
+/// set changed, cost, profile matrix of the set when `PROFILE`, else zero:
+/// a gate whose set comes out unchanged ends the refit, and its profile
+/// would go unused, so later gates leave it to [`profile_of`]).
+fn gate<const PROFILE: bool>(
     pairs: &[Pair],
     inv_var: &[f64],
     gate_chord2: &[f64],
@@ -128,9 +130,21 @@ fn gate(
         *w_out = w;
         count += is_in as usize;
         cost += e2 * w;
-        sum.add(w, &p.b, &p.r);
+        if PROFILE {
+            sum.add(w, &p.b, &p.r);
+        }
     }
     (count, changed, cost, sum.matrix())
+}
+
+/// `Σ w_i b_i r_iᵀ` at the gate's weights, added exactly as [`gate`] adds
+/// them (outliers at weight 0 included), so the matrix is the same to the bit.
+fn profile_of(pairs: &[Pair], weights: &[f64]) -> Matrix3<f64> {
+    let mut sum = ProfileSum::default();
+    for (p, &w) in pairs.iter().zip(weights) {
+        sum.add(w, &p.b, &p.r);
+    }
+    sum.matrix()
 }
 
 /// Refits from `a0` on the gate inliers (see the module doc for the rule).
@@ -148,7 +162,7 @@ pub(crate) fn refit(
 ) -> Refit {
     let mut a = a0;
     let (mut n_in, _, mut cost, mut profile) =
-        gate(pairs, inv_var, gate_chord2, &a, weights, &mut marks);
+        gate::<true>(pairs, inv_var, gate_chord2, &a, weights, &mut marks);
     let mut gated = true;
     let mut passes = 0;
     let mut stable = false;
@@ -157,16 +171,16 @@ pub(crate) fn refit(
             break;
         };
         passes += 1;
-        let (n_new, changed, cost_new, profile_new) =
-            gate(pairs, inv_var, gate_chord2, &a_new, weights, &mut marks);
+        let (n_new, changed, cost_new, _) =
+            gate::<false>(pairs, inv_var, gate_chord2, &a_new, weights, &mut marks);
         a = a_new;
         n_in = n_new;
         cost = cost_new;
-        profile = profile_new;
         if !changed {
             stable = true;
             break;
         }
+        profile = profile_of(pairs, weights);
     }
     if !stable && passes > 0 && n_in >= 2 {
         // The cap was hit with a changed set: fit once more so `a` matches `weights`.
