@@ -641,60 +641,8 @@ impl Estimator {
             _ => e.q,
         });
 
-        // Pairs at the epoch, per-sensor presence. Each observation's `b` at
-        // the rates' anchor time is kept between epochs while it is settled,
-        // so an epoch costs one rotation `K(E)` and a matrix product per pair.
-        self.counts.clear();
-        self.counts.resize(self.sensors.len(), (0, 0));
-        let arw2 = self.config.gyro_arw * self.config.gyro_arw;
-        let to_epoch = propagated.then(|| self.rates.anchored(epoch).to_rotation_matrix());
-        let (generation, settled_before) = (self.rates.generation(), self.rates.settled_before());
-        // Written straight into the solver's buffers, sized first (no
-        // capacity check per pair, no copy of the window).
-        let (rates, counts) = (&self.rates, &mut self.counts);
-        // Each pair is weighed as it is written (σ, `σ⁻²` and gate in the
-        // same pass): the solver does not weigh the window again.
-        let buf = self.solver.weighed_buffer();
-        let solver_gate_k = buf.gate_k;
-        let len = range.len();
-        let blank = Pair {
-            b: Vector3::zeros(),
-            r: Vector3::zeros(),
-            sigma: 0.0,
-        };
-        buf.pairs.resize(len, blank);
-        buf.inv_var.resize(len, 0.0);
-        buf.gate_chord2.resize(len, 0.0);
-        let slots = buf
-            .pairs
-            .iter_mut()
-            .zip(buf.inv_var.iter_mut().zip(buf.gate_chord2.iter_mut()));
-        for (obs, (pair, (inv_var, gate))) in self.obs.iter_range_mut(range.clone()).zip(slots) {
-            counts[obs.sensor_idx as usize].0 += 1;
-            let (b, sigma) = match &to_epoch {
-                Some(k_epoch) => {
-                    if obs.anchored_gen != generation {
-                        obs.anchored_b = rates.anchored(obs.t).inverse_transform_vector(&obs.b);
-                        // Kept for later epochs only where `K` is settled.
-                        obs.anchored_gen = if obs.t < settled_before {
-                            generation
-                        } else {
-                            0
-                        };
-                    }
-                    let dt_s = (epoch - obs.t) as f64 * S_PER_NS;
-                    (
-                        k_epoch * obs.anchored_b,
-                        (obs.sigma * obs.sigma + arw2 * dt_s).sqrt(),
-                    )
-                }
-                None => (obs.b, obs.sigma),
-            };
-            *pair = Pair { b, r: obs.r, sigma };
-            (*inv_var, *gate) = weigh_pair(sigma, solver_gate_k);
-        }
-        let pairs = &*buf.pairs;
-        let n = pairs.len();
+        self.load_window(epoch, range.clone(), propagated);
+        let n = range.len();
         let geometry_changed = self.present_before.len() != self.counts.len()
             || self
                 .present_before
@@ -809,39 +757,10 @@ impl Estimator {
         });
 
         // Per-sensor inlier counts and the inliers' mean age, then the verdicts.
-        let mut age = InlierAge::default();
-        let inliers = &self.verdict.inliers;
-        let is_inlier = |pair_idx: usize| inliers.get(pair_idx).copied().unwrap_or(false) && n >= 2;
-        // `aged` only after a successful solve of these pairs, whose σ⁻² the solver kept.
-        let inv_var = self.solver.loaded().inv_var;
-        for (pair_idx, obs) in self.obs.iter_range(range.clone()).enumerate() {
-            if is_inlier(pair_idx) {
-                self.counts[obs.sensor_idx as usize].1 += 1;
-                if aged {
-                    age.add(inv_var[pair_idx], epoch - obs.t);
-                }
-            }
-        }
-        let verdicts = self.emit_verdicts.then(|| {
-            let (sensors, residuals) = (&self.sensors, &self.verdict.residuals);
-            // One `extend` writes the entries in place: a `push` per entry
-            // built each on the stack and copied it, with stalls on reading
-            // back the parts just written (three times the cost in isolation).
-            let mut verdicts = Vec::with_capacity(n);
-            verdicts.extend(
-                self.obs
-                    .iter_range(range)
-                    .enumerate()
-                    .map(|(pair_idx, obs)| ObsVerdict {
-                        sensor: sensors[obs.sensor_idx as usize].name.clone(),
-                        seq: obs.seq,
-                        residual: residuals[pair_idx],
-                        inlier: is_inlier(pair_idx),
-                    }),
-            );
-            verdicts
-        });
+        let age = self.tally_inliers(epoch, range.clone(), aged);
+        let verdicts = self.emit_verdicts.then(|| self.verdict_list(range));
         if full {
+            let arw2 = self.config.gyro_arw * self.config.gyro_arw;
             let common = if aged { arw2 * age.mean_s() } else { 0.0 };
             cov += Matrix3::identity() * common;
         }
@@ -875,6 +794,171 @@ impl Estimator {
         }));
         self.stats.epochs += 1;
         self.judge_epoch_alerts(epoch, status, inlier_fraction, directions, out);
+    }
+
+    /// Writes the window's pairs at `epoch` into the solver's buffers
+    /// (weighed, see [`Solver::solve_weighed`]) and counts each sensor's
+    /// observations into `counts`. Each observation's `b` at the rates'
+    /// anchor time is kept between epochs while it is settled, so an epoch
+    /// costs one rotation `K(E)` and a matrix product per pair.
+    #[inline(never)]
+    fn load_window(&mut self, epoch: i64, range: std::ops::Range<usize>, propagated: bool) {
+        self.counts.clear();
+        self.counts.resize(self.sensors.len(), (0, 0));
+        let arw2 = self.config.gyro_arw * self.config.gyro_arw;
+        let to_epoch = propagated.then(|| self.rates.anchored(epoch).to_rotation_matrix());
+        let (generation, settled_before) = (self.rates.generation(), self.rates.settled_before());
+        // Written straight into the solver's buffers, sized first (no
+        // capacity check per pair, no copy of the window).
+        let (rates, counts) = (&self.rates, &mut self.counts);
+        // Each pair is weighed as it is written (σ, `σ⁻²` and gate in the
+        // same pass): the solver does not weigh the window again.
+        let buf = self.solver.weighed_buffer();
+        let solver_gate_k = buf.gate_k;
+        let len = range.len();
+        let blank = Pair {
+            b: Vector3::zeros(),
+            r: Vector3::zeros(),
+            sigma: 0.0,
+        };
+        buf.pairs.resize(len, blank);
+        buf.inv_var.resize(len, 0.0);
+        buf.gate_chord2.resize(len, 0.0);
+        let weigh = |obs: &mut [BufferedObs],
+                     pairs: &mut [Pair],
+                     inv_var: &mut [f64],
+                     gate: &mut [f64],
+                     counts: &mut [(u32, u32)]| {
+            let slots = pairs
+                .iter_mut()
+                .zip(inv_var.iter_mut().zip(gate.iter_mut()));
+            for (obs, (slot, (inv_var, gate))) in obs.iter_mut().zip(slots) {
+                counts[obs.sensor_idx as usize].0 += 1;
+                let (b, sigma) = match &to_epoch {
+                    Some(k_epoch) => {
+                        if obs.anchored_gen != generation {
+                            obs.anchored_b = rates.anchored(obs.t).inverse_transform_vector(&obs.b);
+                            // Kept for later epochs only where `K` is settled.
+                            obs.anchored_gen = if obs.t < settled_before {
+                                generation
+                            } else {
+                                0
+                            };
+                        }
+                        let dt_s = (epoch - obs.t) as f64 * S_PER_NS;
+                        (
+                            k_epoch * obs.anchored_b,
+                            (obs.sigma * obs.sigma + arw2 * dt_s).sqrt(),
+                        )
+                    }
+                    None => (obs.b, obs.sigma),
+                };
+                *slot = Pair { b, r: obs.r, sigma };
+                (*inv_var, *gate) = weigh_pair(sigma, solver_gate_k);
+            }
+        };
+        // The ring's two parts, each a plain loop.
+        let (first, second) = self.obs.slices_mut(range);
+        let split = first.len();
+        let (pairs, inv_var, gate) = (buf.pairs, buf.inv_var, buf.gate_chord2);
+        let (p1, p2) = pairs.split_at_mut(split);
+        let (w1, w2) = inv_var.split_at_mut(split);
+        let (g1, g2) = gate.split_at_mut(split);
+        weigh(first, p1, w1, g1, counts);
+        weigh(second, p2, w2, g2, counts);
+    }
+
+    /// Adds each sensor's inliers of the window `range` (the epoch's pairs,
+    /// in order) to `counts`, and returns their information-weighted mean
+    /// age when `aged` (after a successful solve, whose `σ⁻²` the solver kept).
+    #[inline(never)]
+    fn tally_inliers(
+        &mut self,
+        epoch: i64,
+        range: std::ops::Range<usize>,
+        aged: bool,
+    ) -> InlierAge {
+        let mut age = InlierAge::default();
+        // Fewer than two pairs are never solved: no inliers.
+        if range.len() < 2 {
+            return age;
+        }
+        let (first, second) = self.obs.slices(range);
+        let (inliers, counts) = (&self.verdict.inliers[..], &mut self.counts);
+        // A flag past the verdict's end is an outlier (`zip` stops there).
+        let split = first.len().min(inliers.len());
+        let parts = [(first, &inliers[..split]), (second, &inliers[split..])];
+        if aged {
+            let inv_var = self.solver.loaded().inv_var;
+            let split = split.min(inv_var.len());
+            let weights = [&inv_var[..split], &inv_var[split..]];
+            for ((obs, inliers), inv_var) in parts.into_iter().zip(weights) {
+                for ((obs, &inlier), &w) in obs.iter().zip(inliers).zip(inv_var) {
+                    counts[obs.sensor_idx as usize].1 += inlier as u32;
+                    // Branch-free: an outlier adds weight 0, which leaves the sums as they are.
+                    age.add(if inlier { w } else { 0.0 }, epoch - obs.t);
+                }
+            }
+        } else {
+            for (obs, inliers) in parts {
+                for (obs, &inlier) in obs.iter().zip(inliers) {
+                    counts[obs.sensor_idx as usize].1 += inlier as u32;
+                }
+            }
+        }
+        age
+    }
+
+    /// The per-observation verdicts of the window `range`, in order.
+    #[inline(never)]
+    fn verdict_list(&self, range: std::ops::Range<usize>) -> Vec<ObsVerdict> {
+        let n = range.len();
+        let (sensors, verdict) = (&self.sensors, &self.verdict);
+        let (first, second) = self.obs.slices(range);
+        let mut verdicts = Vec::with_capacity(n);
+        // Fewer than two pairs are never solved: no inliers. A verdict
+        // shorter than the window (not expected) marks the rest as outliers at `π`.
+        let solved = n >= 2;
+        let flag = |i: usize| solved && verdict.inliers.get(i).copied().unwrap_or(false);
+        let angle = |i: usize| {
+            verdict
+                .residuals
+                .get(i)
+                .copied()
+                .unwrap_or(std::f64::consts::PI)
+        };
+        let entry = |obs: &BufferedObs, residual: f64, inlier: bool| ObsVerdict {
+            sensor: sensors[obs.sensor_idx as usize].name.clone(),
+            seq: obs.seq,
+            residual,
+            inlier,
+        };
+        if verdict.residuals.len() >= n && verdict.inliers.len() >= n {
+            // The usual case: zipped slices, no index checks. One `extend`
+            // per part writes the entries in place (a `push` per entry built
+            // each on the stack and copied it).
+            let split = first.len();
+            for (obs, offset) in [(first, 0), (second, split)] {
+                let end = offset + obs.len();
+                let residuals = &verdict.residuals[offset..end];
+                let inliers = &verdict.inliers[offset..end];
+                verdicts.extend(
+                    obs.iter()
+                        .zip(residuals)
+                        .zip(inliers)
+                        .map(|((obs, &residual), &inlier)| entry(obs, residual, solved && inlier)),
+                );
+            }
+        } else {
+            verdicts.extend(
+                first
+                    .iter()
+                    .chain(second)
+                    .enumerate()
+                    .map(|(i, obs)| entry(obs, angle(i), flag(i))),
+            );
+        }
+        verdicts
     }
 
     /// The verdict of the fallback attitude when no solve gave one (no solver gates).

@@ -65,28 +65,23 @@ impl ObsBuffer {
         &mut self.obs[idx]
     }
 
-    /// The observations of an index range, in time order. (The ring's two
-    /// slices chained: an iterator of known length, which `Vec::extend`
-    /// writes in place.)
-    pub fn iter_range(
-        &self,
-        range: std::ops::Range<usize>,
-    ) -> std::iter::Chain<std::slice::Iter<'_, BufferedObs>, std::slice::Iter<'_, BufferedObs>>
-    {
+    /// The observations of `range` as the ring's two contiguous parts, in
+    /// order (the second empty unless the range wraps): loops over plain
+    /// slices, without the chained iterator's test per item.
+    pub fn slices(&self, range: std::ops::Range<usize>) -> (&[BufferedObs], &[BufferedObs]) {
         let (a, b) = self.obs.as_slices();
         let (in_a, in_b) = split_range(range, a.len());
-        a[in_a].iter().chain(b[in_b].iter())
+        (&a[in_a], &b[in_b])
     }
 
-    /// The observations of an index range, to update their cached propagation.
-    pub fn iter_range_mut(
+    /// [`ObsBuffer::slices`], mutable.
+    pub fn slices_mut(
         &mut self,
         range: std::ops::Range<usize>,
-    ) -> std::iter::Chain<std::slice::IterMut<'_, BufferedObs>, std::slice::IterMut<'_, BufferedObs>>
-    {
+    ) -> (&mut [BufferedObs], &mut [BufferedObs]) {
         let (a, b) = self.obs.as_mut_slices();
         let (in_a, in_b) = split_range(range, a.len());
-        a[in_a].iter_mut().chain(b[in_b].iter_mut())
+        (&mut a[in_a], &mut b[in_b])
     }
 
     /// Time of the oldest observation held.
@@ -190,10 +185,12 @@ mod tests {
             buf.insert(obs(10 * i, i as u64), 4);
         }
         for (lo, hi) in [(0, 4), (1, 3), (0, 0), (2, 4), (3, 4)] {
-            let seqs: Vec<u64> = buf.iter_range(lo..hi).map(|o| o.seq).collect();
+            let (a, b) = buf.slices(lo..hi);
+            let seqs: Vec<u64> = a.iter().chain(b).map(|o| o.seq).collect();
             let want: Vec<u64> = (lo..hi).map(|i| buf.get(i).seq).collect();
             assert_eq!(seqs, want);
-            let seqs_mut: Vec<u64> = buf.iter_range_mut(lo..hi).map(|o| o.seq).collect();
+            let (a, b) = buf.slices_mut(lo..hi);
+            let seqs_mut: Vec<u64> = a.iter().chain(b.iter()).map(|o| o.seq).collect();
             assert_eq!(seqs_mut, want);
         }
         assert_eq!(buf.get(0).seq, 2);
