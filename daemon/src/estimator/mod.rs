@@ -87,7 +87,7 @@ pub use config::{
     AlertsConfig, ConfigError, EstimatorConfig, LevelConfig, SensorConfig, SensorKind,
 };
 
-use crate::solve::{weigh_pair, Pair, SolveError, Solver};
+use crate::solve::{weigh_pair, weigh_variances, Pair, SolveError, Solver};
 use crate::verdict::{
     assess_gated_into, assess_into, assess_loaded_into, Observability, Verdict,
     UNOBSERVABLE_VARIANCE,
@@ -821,6 +821,7 @@ impl Estimator {
             r: Vector3::zeros(),
             sigma: 0.0,
         };
+        // Every entry is written below: only a longer window fills the new part.
         buf.pairs.resize(len, blank);
         buf.inv_var.resize(len, 0.0);
         buf.gate_chord2.resize(len, 0.0);
@@ -848,13 +849,16 @@ impl Estimator {
                         let dt_s = (epoch - obs.t) as f64 * S_PER_NS;
                         (
                             k_epoch * obs.anchored_b,
-                            (obs.sigma * obs.sigma + arw2 * dt_s).sqrt(),
+                            // The variance for now: see `weigh_variances` below.
+                            obs.sigma * obs.sigma + arw2 * dt_s,
                         )
                     }
                     None => (obs.b, obs.sigma),
                 };
                 *slot = Pair { b, r: obs.r, sigma };
-                (*inv_var, *gate) = weigh_pair(sigma, solver_gate_k);
+                if !propagated {
+                    (*inv_var, *gate) = weigh_pair(sigma, solver_gate_k);
+                }
             }
         };
         // The ring's two parts, each a plain loop.
@@ -866,6 +870,10 @@ impl Estimator {
         let (g1, g2) = gate.split_at_mut(split);
         weigh(first, p1, w1, g1, counts);
         weigh(second, p2, w2, g2, counts);
+        if propagated {
+            // σ from the variances, weights and gates: packed, in a loop of its own.
+            weigh_variances(pairs, inv_var, gate, solver_gate_k);
+        }
     }
 
     /// Adds each sensor's inliers of the window `range` (the epoch's pairs,

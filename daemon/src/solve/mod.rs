@@ -317,11 +317,7 @@ impl Workspace {
     fn check_in_place(&mut self) -> Result<(), SolveError> {
         let near_unit = |v: &Vector3<f64>| (v.norm_squared() - 1.0).abs() <= IN_PLACE_UNIT_TOL;
         // Branch-free test of every pair first; the rare misfit is redone below.
-        let mut all_fine = true;
-        for p in &self.pairs {
-            all_fine &= (p.sigma.is_finite() & (p.sigma > 0.0)) & near_unit(&p.b) & near_unit(&p.r);
-        }
-        if !all_fine {
+        if !all_pairs_fit(&self.pairs) {
             for (index, p) in self.pairs.iter_mut().enumerate() {
                 if !(p.sigma.is_finite() && p.sigma > 0.0) {
                     return Err(SolveError::InvalidPair {
@@ -369,6 +365,34 @@ impl Workspace {
     }
 }
 
+/// Whether every pair has σ finite and `> 0` and both vectors within
+/// [`IN_PLACE_UNIT_TOL`] of unit squared length: two pairs at a time in
+/// packed arithmetic, each squared norm summed as `norm_squared` sums it
+/// (`(x² + y²) + z²`), so the answer is the scalar test's.
+fn all_pairs_fit(pairs: &[Pair]) -> bool {
+    use wide::{f64x2, CmpGt, CmpLe, CmpLt};
+    let near_unit = |x: f64x2, y: f64x2, z: f64x2| {
+        ((x * x + y * y) + z * z - f64x2::ONE)
+            .abs()
+            .cmp_le(f64x2::splat(IN_PLACE_UNIT_TOL))
+    };
+    let mut fit = 0b11;
+    let mut blocks = pairs.chunks_exact(2);
+    for p in &mut blocks {
+        let lane = |f: fn(&Pair) -> f64| f64x2::new([f(&p[0]), f(&p[1])]);
+        let sigma = lane(|p| p.sigma);
+        let sigma_ok = sigma.cmp_gt(f64x2::ZERO) & sigma.cmp_lt(f64x2::splat(f64::INFINITY));
+        let b = near_unit(lane(|p| p.b.x), lane(|p| p.b.y), lane(|p| p.b.z));
+        let r = near_unit(lane(|p| p.r.x), lane(|p| p.r.y), lane(|p| p.r.z));
+        fit &= (sigma_ok & b & r).move_mask();
+    }
+    let scalar = |p: &Pair| {
+        let near_unit = |v: &Vector3<f64>| (v.norm_squared() - 1.0).abs() <= IN_PLACE_UNIT_TOL;
+        (p.sigma.is_finite() & (p.sigma > 0.0)) & near_unit(&p.b) & near_unit(&p.r)
+    };
+    fit == 0b11 && blocks.remainder().iter().all(scalar)
+}
+
 /// A pair's weight `σ⁻²`, as every solve computes it.
 #[inline]
 pub(crate) fn inv_var_of(sigma: f64) -> f64 {
@@ -388,6 +412,56 @@ pub(crate) fn weigh_pair(sigma: f64, gate_k: f64) -> (f64, f64) {
     (inv_var_of(sigma), gate_of_sigma(sigma, gate_k))
 }
 
+/// For pairs whose `sigma` holds a variance: `sigma` set to its square
+/// root, and each pair's [`weigh_pair`] at `gate_k` written beside it.
+/// Four pairs at a time in packed arithmetic (square roots, divisions and
+/// the gate series, each correctly rounded or the same products and sums as
+/// the scalar form, so the values are [`weigh_pair`]'s to the bit); a block
+/// with a gate angle beyond the series' range is done one pair at a time.
+pub(crate) fn weigh_variances(
+    pairs: &mut [Pair],
+    inv_var: &mut [f64],
+    gate_chord2: &mut [f64],
+    gate_k: f64,
+) {
+    use wide::{f64x4, CmpLe};
+    let n = pairs.len().min(inv_var.len()).min(gate_chord2.len());
+    let packed = n - n % 4;
+    let scalar = |p: &mut Pair, w: &mut f64, g: &mut f64| {
+        p.sigma = p.sigma.sqrt();
+        (*w, *g) = weigh_pair(p.sigma, gate_k);
+    };
+    let blocks = pairs[..packed]
+        .chunks_exact_mut(4)
+        .zip(inv_var[..packed].chunks_exact_mut(4))
+        .zip(gate_chord2[..packed].chunks_exact_mut(4));
+    for ((p, w), g) in blocks {
+        let sigma = f64x4::new([p[0].sigma, p[1].sigma, p[2].sigma, p[3].sigma]).sqrt();
+        let angle = f64x4::splat(gate_k) * sigma;
+        // All four within the series (which also rules out NaN): `min(·, π)` is the angle itself.
+        if angle.cmp_le(f64x4::splat(GATE_SERIES_MAX)).move_mask() != 0b1111 {
+            for ((p, w), g) in p.iter_mut().zip(w.iter_mut()).zip(g.iter_mut()) {
+                scalar(p, w, g);
+            }
+            continue;
+        }
+        let inv = f64x4::ONE / (sigma * sigma);
+        let g2 = angle * angle;
+        let c = |k: usize| f64x4::splat(GATE_SERIES[k]);
+        let gate =
+            g2 * (f64x4::ONE + g2 * (c(0) + g2 * (c(1) + g2 * (c(2) + g2 * (c(3) + g2 * c(4))))));
+        let sigma = sigma.to_array();
+        for (p, s) in p.iter_mut().zip(sigma) {
+            p.sigma = s;
+        }
+        w.copy_from_slice(&inv.to_array());
+        g.copy_from_slice(&gate.to_array());
+    }
+    for i in packed..n {
+        scalar(&mut pairs[i], &mut inv_var[i], &mut gate_chord2[i]);
+    }
+}
+
 /// Squared-norm tolerance within which [`Solver::solve_in_place`] takes a
 /// vector as unit: 16 ε, a length off by at most about 2e-15 (a vector
 /// normalised once and rotated twice is off by a few ε).
@@ -395,6 +469,16 @@ pub const IN_PLACE_UNIT_TOL: f64 = 16.0 * f64::EPSILON;
 
 /// Gate angle up to which [`gate_chord2`] uses its series, rad.
 const GATE_SERIES_MAX: f64 = 0.2;
+
+/// The coefficients after the first of `2 (1 − cos g)` in powers of `g²`
+/// (see [`gate_chord2`]).
+const GATE_SERIES: [f64; 5] = [
+    -1.0 / 12.0,
+    1.0 / 360.0,
+    -1.0 / 20_160.0,
+    1.0 / 1_814_400.0,
+    -1.0 / 239_500_800.0,
+];
 
 /// Squared chord of the gate angle `g`, `(2 sin(g/2))² = 2 (1 − cos g)`.
 ///
@@ -411,13 +495,7 @@ pub(crate) fn gate_chord2(g: f64) -> f64 {
     // by Horner with the coefficients as constants: multiplications only (a
     // division per term, as `g2 / 12.0` would be, made this most of a
     // verdict's time).
-    const C: [f64; 5] = [
-        -1.0 / 12.0,
-        1.0 / 360.0,
-        -1.0 / 20_160.0,
-        1.0 / 1_814_400.0,
-        -1.0 / 239_500_800.0,
-    ];
+    const C: [f64; 5] = GATE_SERIES;
     let g2 = g * g;
     g2 * (1.0 + g2 * (C[0] + g2 * (C[1] + g2 * (C[2] + g2 * (C[3] + g2 * C[4])))))
 }
@@ -601,14 +679,14 @@ impl Solver {
         &mut self.ws.pairs
     }
 
-    /// The solver's pair, weight and gate buffers, emptied, and its gate
-    /// multiplier: for a caller in this crate that writes each pair with
-    /// its [`weigh_pair`] in one pass, then calls [`Solver::solve_weighed`].
+    /// The solver's pair, weight and gate buffers and its gate multiplier,
+    /// for a caller in this crate that writes each pair with its
+    /// [`weigh_pair`] in one pass, then calls [`Solver::solve_weighed`].
+    /// The buffers hold the last solve's values (not cleared: a caller
+    /// resizes them to its pairs and overwrites every entry, so that a
+    /// window of the same size costs no fill).
     pub(crate) fn weighed_buffer(&mut self) -> WeighedBuffer<'_> {
         self.last_a = None;
-        self.ws.pairs.clear();
-        self.ws.inv_var.clear();
-        self.ws.gate_chord2.clear();
         WeighedBuffer {
             pairs: &mut self.ws.pairs,
             inv_var: &mut self.ws.inv_var,

@@ -11,6 +11,7 @@
 //! `θ_i ≤ k σ_i` (cheaper, same set).
 
 use nalgebra::Matrix3;
+use wide::{f64x2, CmpLe};
 
 use super::rotation::{nearest_rotation, ProfileSum};
 use super::{Estimate, Pair, Workspace};
@@ -102,6 +103,12 @@ pub(crate) struct GateMarks<'a> {
 /// set changed, cost, profile matrix of the set when `PROFILE`, else zero:
 /// a gate whose set comes out unchanged ends the refit, and its profile
 /// would go unused, so later gates leave it to [`profile_of`]).
+///
+/// Two pairs at a time in packed arithmetic ([`wide::f64x2`]); each pair's
+/// squared chord is the scalar [`Rows::chord2`] to the bit (the same
+/// operations in the same order), so the flags are exactly the scalar
+/// gate's. The sums (cost, profile) are kept per lane and added up at the
+/// end: the same sums in another order, equal to rounding.
 fn gate<const PROFILE: bool>(
     pairs: &[Pair],
     inv_var: &[f64],
@@ -110,35 +117,89 @@ fn gate<const PROFILE: bool>(
     weights: &mut [f64],
     marks: &mut GateMarks<'_>,
 ) -> (usize, bool, f64, Matrix3<f64>) {
+    let n = pairs
+        .len()
+        .min(inv_var.len())
+        .min(gate_chord2.len())
+        .min(weights.len())
+        .min(marks.inl.len())
+        .min(marks.chord2.len());
+    let rows = Rows::of(a);
+    let m: [f64x2; 9] = std::array::from_fn(|k| f64x2::splat(rows.0[k]));
     let mut count = 0;
     let mut changed = false;
-    let mut cost = 0.0;
-    let mut sum = ProfileSum::default();
-    // Branch-free: an outlier adds its pair at weight 0, which leaves the
-    // sums as they are (the pairs are finite); a branch per pair cost more
-    // than the additions it skipped. Zipped slices: no bounds checks.
-    let marked = marks.inl.iter_mut().zip(marks.chord2.iter_mut());
-    let weighed = inv_var.iter().zip(gate_chord2).zip(weights.iter_mut());
-    let rows = Rows::of(a);
-    for ((p, ((&w_in, &gate), w_out)), (inl, c2)) in pairs.iter().zip(weighed).zip(marked) {
-        let e2 = rows.chord2(p);
-        let is_in = e2 <= gate;
-        changed |= is_in != *inl;
-        *inl = is_in;
-        *c2 = e2;
-        let w = if is_in { w_in } else { 0.0 };
-        *w_out = w;
-        count += is_in as usize;
+    let mut cost = f64x2::ZERO;
+    let mut sum = [f64x2::ZERO; 9];
+    let packed = n - n % 2;
+    let blocks = pairs[..packed]
+        .chunks_exact(2)
+        .zip(inv_var[..packed].chunks_exact(2))
+        .zip(gate_chord2[..packed].chunks_exact(2));
+    let outs = weights[..packed]
+        .chunks_exact_mut(2)
+        .zip(marks.inl[..packed].chunks_exact_mut(2))
+        .zip(marks.chord2[..packed].chunks_exact_mut(2));
+    for (((p, w_in), g), ((w_out, inl), c2)) in blocks.zip(outs) {
+        let lane = |f: fn(&Pair) -> f64| f64x2::new([f(&p[0]), f(&p[1])]);
+        let (bx, by, bz) = (lane(|p| p.b.x), lane(|p| p.b.y), lane(|p| p.b.z));
+        let (rx, ry, rz) = (lane(|p| p.r.x), lane(|p| p.r.y), lane(|p| p.r.z));
+        let d0 = bx - (m[0] * rx + m[1] * ry + m[2] * rz);
+        let d1 = by - (m[3] * rx + m[4] * ry + m[5] * rz);
+        let d2 = bz - (m[6] * rx + m[7] * ry + m[8] * rz);
+        let e2 = d0 * d0 + d1 * d1 + d2 * d2;
+        let is_in = e2.cmp_le(f64x2::new([g[0], g[1]]));
+        // Outliers at weight +0 (the mask clears every bit).
+        let w = f64x2::new([w_in[0], w_in[1]]) & is_in;
         cost += e2 * w;
         if PROFILE {
-            sum.add(w, &p.b, &p.r);
+            let (wx, wy, wz) = (w * bx, w * by, w * bz);
+            sum[0] += wx * rx;
+            sum[1] += wx * ry;
+            sum[2] += wx * rz;
+            sum[3] += wy * rx;
+            sum[4] += wy * ry;
+            sum[5] += wy * rz;
+            sum[6] += wz * rx;
+            sum[7] += wz * ry;
+            sum[8] += wz * rz;
+        }
+        let bits = is_in.move_mask();
+        w_out.copy_from_slice(&w.to_array());
+        c2.copy_from_slice(&e2.to_array());
+        for (l, flag) in inl.iter_mut().enumerate() {
+            let now = (bits >> l) & 1 == 1;
+            changed |= now != *flag;
+            *flag = now;
+            count += now as usize;
         }
     }
-    (count, changed, cost, sum.matrix())
+    let total = |v: f64x2| {
+        let [a, b] = v.to_array();
+        a + b
+    };
+    let mut cost = total(cost);
+    let mut profile = ProfileSum::from_entries(std::array::from_fn(|k| total(sum[k])));
+    // The last pairs one at a time.
+    for i in packed..n {
+        let p = &pairs[i];
+        let e2 = rows.chord2(p);
+        let now = e2 <= gate_chord2[i];
+        changed |= now != marks.inl[i];
+        marks.inl[i] = now;
+        marks.chord2[i] = e2;
+        let w = if now { inv_var[i] } else { 0.0 };
+        weights[i] = w;
+        count += now as usize;
+        cost += e2 * w;
+        if PROFILE {
+            profile.add(w, &p.b, &p.r);
+        }
+    }
+    (count, changed, cost, profile.matrix())
 }
 
-/// `Σ w_i b_i r_iᵀ` at the gate's weights, added exactly as [`gate`] adds
-/// them (outliers at weight 0 included), so the matrix is the same to the bit.
+/// `Σ w_i b_i r_iᵀ` at the gate's weights (outliers at weight 0), for a
+/// gate that left the profile out.
 fn profile_of(pairs: &[Pair], weights: &[f64]) -> Matrix3<f64> {
     let mut sum = ProfileSum::default();
     for (p, &w) in pairs.iter().zip(weights) {

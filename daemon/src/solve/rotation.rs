@@ -43,6 +43,11 @@ impl ProfileSum {
         m[8] += b2 * r.z;
     }
 
+    /// A sum with the given row-major entries (sums kept elsewhere).
+    pub fn from_entries(m: [f64; 9]) -> Self {
+        ProfileSum { m }
+    }
+
     /// The matrix `B`.
     pub fn matrix(&self) -> Matrix3<f64> {
         Matrix3::from_row_slice(&self.m)
