@@ -762,7 +762,7 @@ mod tests {
                     (2.1 * y).sin() + 0.1,
                 )
                 .normalize();
-                let w = 10f64.powi((k % 3) as i32 * 2);
+                let w = 10f64.powi((k % 3) * 2);
                 info += (Matrix3::identity() - v * v.transpose()) * w;
             }
             let lu = info.try_inverse().unwrap();

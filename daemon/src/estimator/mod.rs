@@ -279,7 +279,15 @@ fn wire_cov(m: &Matrix3<f64>) -> [f64; 9] {
 /// is unit to rounding already (one division, not three).
 fn unit(v: [f64; 3]) -> Vector3<f64> {
     let v = Vector3::from(v);
-    v * crate::solve::unit_scale(v.norm_squared())
+    let n2 = v.norm_squared();
+    // A branch, not `unit_scale`'s select: one sensor's vectors are either
+    // all unit already or all not, so it is predicted, and the unit ones
+    // cost no square root and division (kept bit for bit, as there).
+    if (n2 - 1.0).abs() <= 4.0 * f64::EPSILON {
+        v
+    } else {
+        v * crate::solve::unit_scale(n2)
+    }
 }
 
 const NS_PER_S: f64 = 1e9;

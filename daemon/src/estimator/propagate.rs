@@ -108,14 +108,16 @@ impl RateBuffer {
             }
             _ => self.samples.len(),
         };
-        self.samples.insert(
-            at,
-            Held {
-                sample,
-                from: sample.t,
-                k_from: UnitQuaternion::identity(),
-            },
-        );
+        let held = Held {
+            sample,
+            from: sample.t,
+            k_from: UnitQuaternion::identity(),
+        };
+        if at == self.samples.len() {
+            self.samples.push_back(held);
+        } else {
+            self.samples.insert(at, held);
+        }
         if at + 1 < self.samples.len() {
             // Out of order (or a new first sample, the new anchor): later
             // holds move, and settled time with them.

@@ -833,6 +833,83 @@ mod tests {
         }
     }
 
+    #[test]
+    fn packed_weighing_of_variances_is_the_scalar_weighing_to_the_bit() {
+        // Derived in the test: `weigh_variances` must give, for every
+        // length (remainders of 0 to 3 pairs) and for blocks that leave the
+        // series (σ large enough for a gate angle past 0.2 rad), exactly
+        // `weigh_pair(sqrt(var))`, the scalar path's values.
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let k = SolveParams::default().gate_k;
+        for n in [0, 1, 2, 3, 4, 5, 7, 13, 200] {
+            let vars: Vec<f64> = (0..n)
+                .map(|i| {
+                    let sigma: f64 = if i % 11 == 6 {
+                        rng.random_range(0.06..0.5) // gate angle beyond the series
+                    } else {
+                        rng.random_range(1e-6..1e-2)
+                    };
+                    sigma * sigma + rng.random_range(0.0..1e-8)
+                })
+                .collect();
+            let mut pairs: Vec<Pair> = vars
+                .iter()
+                .map(|&var| Pair {
+                    b: Vector3::x(),
+                    r: Vector3::y(),
+                    sigma: var,
+                })
+                .collect();
+            let (mut inv_var, mut gate) = (vec![0.0; n], vec![0.0; n]);
+            weigh_variances(&mut pairs, &mut inv_var, &mut gate, k);
+            for (i, &var) in vars.iter().enumerate() {
+                let sigma = var.sqrt();
+                let (w, g) = weigh_pair(sigma, k);
+                assert_eq!(pairs[i].sigma.to_bits(), sigma.to_bits(), "n {n}, σ of {i}");
+                assert_eq!(inv_var[i].to_bits(), w.to_bits(), "n {n}, σ⁻² of {i}");
+                assert_eq!(gate[i].to_bits(), g.to_bits(), "n {n}, gate of {i}");
+            }
+        }
+    }
+
+    #[test]
+    fn packed_pair_check_is_the_scalar_check() {
+        // Derived in the test: `all_pairs_fit` must agree with the scalar
+        // test of every pair, one misfit at a time at every position (odd
+        // and even, in the remainder too): σ zero, negative, infinite, NaN;
+        // a vector off unit length; a NaN component.
+        let mut rng = ChaCha8Rng::seed_from_u64(6);
+        let q = UnitQuaternion::from_scaled_axis(Vector3::new(0.2, -0.4, 0.1));
+        let scalar = |pairs: &[Pair]| {
+            pairs.iter().all(|p| {
+                let near_unit =
+                    |v: &Vector3<f64>| (v.norm_squared() - 1.0).abs() <= IN_PLACE_UNIT_TOL;
+                p.sigma.is_finite() && p.sigma > 0.0 && near_unit(&p.b) && near_unit(&p.r)
+            })
+        };
+        let misfits: [fn(&mut Pair); 7] = [
+            |p| p.sigma = 0.0,
+            |p| p.sigma = -1e-3,
+            |p| p.sigma = f64::INFINITY,
+            |p| p.sigma = f64::NAN,
+            |p| p.b *= 1.0 + 1e-12,
+            |p| p.r.y = f64::NAN,
+            |p| p.r *= 0.5,
+        ];
+        for n in [1, 2, 5, 8] {
+            let clean = clean_pairs(&mut rng, &q, n);
+            assert!(all_pairs_fit(&clean) && scalar(&clean), "n {n}");
+            for at in 0..n {
+                for misfit in misfits {
+                    let mut pairs = clean.clone();
+                    misfit(&mut pairs[at]);
+                    assert_eq!(all_pairs_fit(&pairs), scalar(&pairs), "n {n}, at {at}");
+                    assert!(!all_pairs_fit(&pairs), "n {n}, at {at}");
+                }
+            }
+        }
+    }
+
     fn clean_pairs(rng: &mut ChaCha8Rng, q: &UnitQuaternion<f64>, n: usize) -> Vec<Pair> {
         (0..n)
             .map(|_| {

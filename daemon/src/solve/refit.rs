@@ -285,3 +285,80 @@ pub(crate) fn finish(ws: &mut Workspace, est: Estimate, weights: &mut [f64]) -> 
         method: est.method,
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use nalgebra::{UnitQuaternion, Vector3};
+
+    #[test]
+    fn packed_gate_marks_the_scalar_gate_set_and_sums_its_profile() {
+        // Derived in the test: the packed gate must give every pair the
+        // flag and squared chord of the scalar chord `Rows::chord2` against
+        // its gate, to the bit, for every length (remainders of 0 and 1);
+        // its cost and profile are the scalar sums to rounding.
+        let q = UnitQuaternion::from_scaled_axis(Vector3::new(0.3, -0.5, 0.2));
+        let a = q.to_rotation_matrix().into_inner();
+        let rows = Rows::of(&a);
+        for n in [0, 1, 2, 3, 10, 201] {
+            let pairs: Vec<Pair> = (0..n)
+                .map(|i| {
+                    let x = i as f64;
+                    let r = Vector3::new((0.37 * x).sin(), (0.71 * x).cos(), 0.3).normalize();
+                    // Every third pair off by 0.05 rad, the rest by 1e-4 rad.
+                    let off = if i % 3 == 0 { 0.05 } else { 1e-4 };
+                    let axis = r.cross(&Vector3::z()).normalize();
+                    let b = q * (UnitQuaternion::from_scaled_axis(axis * off) * r);
+                    Pair { b, r, sigma: 1e-3 }
+                })
+                .collect();
+            let inv_var: Vec<f64> = (0..n).map(|i| 1e6 * (1.0 + (i % 4) as f64)).collect();
+            let gate_chord2 = vec![1e-4; n]; // a gate of 0.01 rad
+            let (mut weights, mut inl, mut chord2) = (vec![0.0; n], vec![true; n], vec![0.0; n]);
+            let mut gated_a = None;
+            let mut marks = GateMarks {
+                inl: &mut inl,
+                chord2: &mut chord2,
+                gated_a: &mut gated_a,
+            };
+            let (count, changed, cost, profile) =
+                gate::<true>(&pairs, &inv_var, &gate_chord2, &a, &mut weights, &mut marks);
+            let mut want_cost = 0.0;
+            let mut want_weights = vec![0.0; n];
+            for i in 0..n {
+                let e2 = rows.chord2(&pairs[i]);
+                let is_in = e2 <= gate_chord2[i];
+                assert_eq!(marks.chord2[i].to_bits(), e2.to_bits(), "n {n}, chord of {i}");
+                assert_eq!(marks.inl[i], is_in, "n {n}, flag of {i}");
+                assert_eq!(is_in, i % 3 != 0, "n {n}, the planted set at {i}");
+                want_weights[i] = if is_in { inv_var[i] } else { 0.0 };
+                want_cost += e2 * want_weights[i];
+            }
+            assert_eq!(weights, want_weights, "n {n}");
+            assert_eq!(count, (0..n).filter(|i| i % 3 != 0).count(), "n {n}");
+            assert_eq!(
+                changed,
+                n > 0,
+                "n {n}: every third flag went from in to out"
+            );
+            assert!(
+                (cost - want_cost).abs() <= 1e-14 * want_cost.max(1e-300),
+                "n {n}"
+            );
+            let want_profile = super::super::rotation::attitude_profile(&pairs, &want_weights);
+            let scale = want_profile.abs().max().max(1e-300);
+            assert!(
+                (profile - want_profile).abs().max() <= 1e-14 * scale,
+                "n {n}"
+            );
+            // Without the profile: the same marks, a zero matrix.
+            let (count2, changed2, cost2, zero) =
+                gate::<false>(&pairs, &inv_var, &gate_chord2, &a, &mut weights, &mut marks);
+            assert_eq!(
+                (count2, changed2, cost2.to_bits()),
+                (count, false, cost.to_bits())
+            );
+            assert_eq!(zero, Matrix3::zeros());
+        }
+    }
+}
