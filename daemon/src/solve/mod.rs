@@ -703,10 +703,7 @@ impl Solver {
         method: Method,
         warm: Option<&UnitQuaternion<f64>>,
     ) -> Result<Outcome, SolveError> {
-        self.last_a = None;
-        self.params.validate()?;
-        self.ws.prepare_weighed(self.params.gate_k)?;
-        self.solve_loaded(method, warm)
+        self.solve_prepared(method, warm, Workspace::prepare_weighed)
     }
 
     /// [`Solver::solve`] on the pairs written into [`Solver::pair_buffer`],
@@ -718,9 +715,20 @@ impl Solver {
         method: Method,
         warm: Option<&UnitQuaternion<f64>>,
     ) -> Result<Outcome, SolveError> {
+        self.solve_prepared(method, warm, Workspace::prepare_in_place)
+    }
+
+    /// The in-place solves: `prepare` checks and weighs the pairs already
+    /// in the workspace at the solver's gate multiplier, then the solve proper.
+    fn solve_prepared(
+        &mut self,
+        method: Method,
+        warm: Option<&UnitQuaternion<f64>>,
+        prepare: fn(&mut Workspace, f64) -> Result<(), SolveError>,
+    ) -> Result<Outcome, SolveError> {
         self.last_a = None;
         self.params.validate()?;
-        self.ws.prepare_in_place(self.params.gate_k)?;
+        prepare(&mut self.ws, self.params.gate_k)?;
         self.solve_loaded(method, warm)
     }
 

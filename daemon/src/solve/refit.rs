@@ -328,7 +328,11 @@ mod tests {
             for i in 0..n {
                 let e2 = rows.chord2(&pairs[i]);
                 let is_in = e2 <= gate_chord2[i];
-                assert_eq!(marks.chord2[i].to_bits(), e2.to_bits(), "n {n}, chord of {i}");
+                assert_eq!(
+                    marks.chord2[i].to_bits(),
+                    e2.to_bits(),
+                    "n {n}, chord of {i}"
+                );
                 assert_eq!(marks.inl[i], is_in, "n {n}, flag of {i}");
                 assert_eq!(is_in, i % 3 != 0, "n {n}, the planted set at {i}");
                 want_weights[i] = if is_in { inv_var[i] } else { 0.0 };
