@@ -1,10 +1,10 @@
-// Each bench uses part of the scene.
-#![allow(dead_code)]
-
 //! The bench scene shared by the estimator benches: star tracker (5 stars
 //! at 10 Hz), sun sensor (50 Hz), magnetometer (100 Hz, 5 % outliers), gyro
 //! (100 Hz), slow slew; span 1 s, period 100 ms, so every window holds 200
 //! observations (2,000 when `dense`).
+
+// Each bench uses part of the scene.
+#![allow(dead_code)]
 
 use nalgebra::{UnitQuaternion, Vector3};
 use rand::{RngExt, SeedableRng};

@@ -681,7 +681,8 @@ impl Solver {
 
     /// The solver's pair, weight and gate buffers and its gate multiplier,
     /// for a caller in this crate that writes each pair with its
-    /// [`weigh_pair`] in one pass, then calls [`Solver::solve_weighed`].
+    /// [`weigh_pair`] (or the pairs' variances, then [`weigh_variances`]),
+    /// then calls [`Solver::solve_weighed`].
     /// The buffers hold the last solve's values (not cleared: a caller
     /// resizes them to its pairs and overwrites every entry, so that a
     /// window of the same size costs no fill).
