@@ -80,6 +80,15 @@ pub(crate) fn is_rotation(m: &Matrix3<f64>) -> bool {
 /// Sweep cap of the one-sided Jacobi SVD (3×3 converges in a handful).
 const SVD_MAX_SWEEPS: usize = 40;
 
+/// Columns `p`, `q` count as orthogonal once `|g_p · g_q| ≤ this · |g_p| |g_q|`.
+/// The computed 3-term dot product itself is off by up to `γ₃ |g_p| |g_q|`,
+/// `γ₃ = 3u / (1 − 3u) ≈ 1.5 ε` (the standard bound for a dot product,
+/// Higham, *Accuracy and Stability of Numerical Algorithms*, §3.1): a
+/// smaller `γ` is rounding noise, and rotating on it can cycle, each tiny
+/// rotation flipping its sign (a threshold of `ε` did, on a well-conditioned
+/// profile matrix, until the sweep cap refused the SVD).
+const JACOBI_ORTHOGONAL: f64 = 4.0 * f64::EPSILON;
+
 /// SVD of a 3×3 matrix, `B = U diag(s) Vᵀ` with `det U = +1`,
 /// `s₀ ≥ s₁ ≥ |s₂|` (the last one signed so that `U` is proper).
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -100,7 +109,8 @@ fn dot3(a: &[f64; 3], b: &[f64; 3]) -> f64 {
 /// SVD by one-sided (Hestenes) Jacobi: plane rotations on the right
 /// orthogonalise the columns of `B`, `B V = G`, then `s_k = |g_k|`,
 /// `u_k = g_k / s_k`. Bounded: at most `SVD_MAX_SWEEPS` sweeps, stopping when
-/// a sweep makes no rotation (every column pair orthogonal to `ε` relative).
+/// a sweep makes no rotation (every column pair orthogonal to
+/// [`JACOBI_ORTHOGONAL`] relative).
 /// The third left vector is `u₀ × u₁` (exactly orthonormal even when `s₂ ≈ 0`).
 /// `None` when the input is not finite, is zero, or a check fails.
 pub fn svd3(b: &Matrix3<f64>) -> Option<Svd3> {
@@ -149,7 +159,7 @@ fn jacobi(
             let alpha = dot3(&g[p], &g[p]);
             let beta = dot3(&g[q], &g[q]);
             let gamma = dot3(&g[p], &g[q]);
-            if gamma == 0.0 || gamma.abs() <= f64::EPSILON * (alpha * beta).sqrt() {
+            if gamma == 0.0 || gamma.abs() <= JACOBI_ORTHOGONAL * (alpha * beta).sqrt() {
                 continue;
             }
             rotated = true;
@@ -378,6 +388,32 @@ mod tests {
         let back = ours.u * Matrix3::from_diagonal(&ours.s) * ours.v.transpose();
         assert!((back - m).abs().max() < 1e-14);
         assert!((ours.u.determinant() - 1.0).abs() < 1e-14);
+    }
+
+    #[test]
+    fn jacobi_stops_on_rounding_noise_instead_of_cycling() {
+        // A profile matrix (21 pairs, weight 1e6, found by the property tests)
+        // on which a threshold of ε cycled: every tiny rotation flipped the
+        // sign of a γ of 1.1 ε |g_p||g_q| until the sweep cap refused the SVD.
+        // Reference singular values: NumPy's `numpy.linalg.svd` (LAPACK),
+        // run once on this matrix when the test was written.
+        let b = Matrix3::from_column_slice(&[
+            4199103.968566963,
+            -4648414.661680167,
+            -610500.6813948251,
+            673952.5135799502,
+            6056424.9281098815,
+            5047899.17366775,
+            -2641978.847955408,
+            96050.91399429535,
+            5690709.639731882,
+        ]);
+        let svd = svd3(&b).expect("the SVD converges");
+        let want = [9915782.6895394, 4949080.68319136, 4334285.7907159];
+        for (got, want) in svd.s.iter().zip(want) {
+            assert!((got - want).abs() <= 1e-9 * want, "{got} vs {want}");
+        }
+        assert!(nearest_rotation(&b).is_ok());
     }
 
     #[test]
