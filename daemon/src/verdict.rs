@@ -196,8 +196,15 @@ fn chords_to_angles(
     a: &Matrix3<f64>,
     mut pair: impl FnMut(usize) -> Option<(Vector3<f64>, Vector3<f64>, f64, f64)>,
 ) {
+    // Whether any angle needs the second pass, gathered in the same loop
+    // (an `or` of comparisons, still packed): none in a window without outliers.
+    let mut redo = false;
     for theta in residuals.iter_mut() {
         *theta = small_angle_of_chord2(*theta);
+        redo |= theta.is_nan() || *theta > SERIES_MAX_ANGLE;
+    }
+    if !redo {
+        return;
     }
     for (i, theta) in residuals.iter_mut().enumerate() {
         if theta.is_nan() || *theta > SERIES_MAX_ANGLE {

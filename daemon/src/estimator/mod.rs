@@ -765,8 +765,16 @@ impl Estimator {
         });
 
         // Per-sensor inlier counts and the inliers' mean age, then the verdicts.
-        let age = self.tally_inliers(epoch, range.clone(), aged);
-        let verdicts = self.emit_verdicts.then(|| self.verdict_list(range));
+        let fused = (aged && self.emit_verdicts)
+            .then(|| self.tally_with_verdicts(epoch, range.clone()))
+            .flatten();
+        let (age, verdicts) = match fused {
+            Some((age, verdicts)) => (age, Some(verdicts)),
+            None => {
+                let age = self.tally_inliers(epoch, range.clone(), aged);
+                (age, self.emit_verdicts.then(|| self.verdict_list(range)))
+            }
+        };
         if full {
             let arw2 = self.config.gyro_arw * self.config.gyro_arw;
             let common = if aged { arw2 * age.mean_s() } else { 0.0 };
@@ -841,12 +849,22 @@ impl Estimator {
             let slots = pairs
                 .iter_mut()
                 .zip(inv_var.iter_mut().zip(gate.iter_mut()));
+            // The stars of one frame share their time, and so their `K(t)`.
+            let mut last_k: Option<(i64, UnitQuaternion<f64>)> = None;
             for (obs, (slot, (inv_var, gate))) in obs.iter_mut().zip(slots) {
                 counts[obs.sensor_idx as usize].0 += 1;
                 let (b, sigma) = match &to_epoch {
                     Some(k_epoch) => {
                         if obs.anchored_gen != generation {
-                            obs.anchored_b = rates.anchored(obs.t).inverse_transform_vector(&obs.b);
+                            let k = match last_k {
+                                Some((t, k)) if t == obs.t => k,
+                                _ => {
+                                    let k = rates.anchored(obs.t);
+                                    last_k = Some((obs.t, k));
+                                    k
+                                }
+                            };
+                            obs.anchored_b = k.inverse_transform_vector(&obs.b);
                             // Kept for later epochs only where `K` is settled.
                             obs.anchored_gen = if obs.t < settled_before {
                                 generation
@@ -925,11 +943,60 @@ impl Estimator {
         age
     }
 
+    /// [`Self::tally_inliers`] (aged) and [`Self::verdict_list`] in one pass
+    /// over the window, which both read: the same counts, the same age
+    /// sums in the same order, the same list. `None` (nothing done) off the
+    /// usual case: fewer than two pairs, or a verdict or weight list
+    /// shorter than the window.
+    #[inline(never)]
+    fn tally_with_verdicts(
+        &mut self,
+        epoch: i64,
+        range: std::ops::Range<usize>,
+    ) -> Option<(InlierAge, Vec<ObsVerdict>)> {
+        let n = range.len();
+        let (verdict, inv_var) = (&self.verdict, self.solver.loaded().inv_var);
+        if n < 2 || verdict.residuals.len() < n || verdict.inliers.len() < n || inv_var.len() < n {
+            return None;
+        }
+        let (sensors, counts) = (&self.sensors[..], &mut self.counts);
+        let (first, second) = self.obs.slices(range);
+        let mut age = InlierAge::default();
+        let mut verdicts = Vec::with_capacity(n);
+        for (obs, offset) in [(first, 0), (second, first.len())] {
+            let end = offset + obs.len();
+            let marks = verdict.residuals[offset..end]
+                .iter()
+                .zip(&verdict.inliers[offset..end])
+                .zip(&inv_var[offset..end]);
+            // One `extend` per part writes the entries in place (a `push`
+            // per entry measured slower).
+            verdicts.extend(
+                obs.iter()
+                    .zip(marks)
+                    .map(|(obs, ((&residual, &inlier), &w))| {
+                        counts[obs.sensor_idx as usize].1 += inlier as u32;
+                        // Branch-free: an outlier adds weight 0, which leaves the sums as they are.
+                        age.add(if inlier { w } else { 0.0 }, epoch - obs.t);
+                        ObsVerdict {
+                            sensor: sensors[obs.sensor_idx as usize].name.clone(),
+                            seq: obs.seq,
+                            residual,
+                            inlier,
+                        }
+                    }),
+            );
+        }
+        Some((age, verdicts))
+    }
+
     /// The per-observation verdicts of the window `range`, in order.
     #[inline(never)]
     fn verdict_list(&self, range: std::ops::Range<usize>) -> Vec<ObsVerdict> {
         let n = range.len();
-        let (sensors, verdict) = (&self.sensors, &self.verdict);
+        // A slice, not the `Vec`: its pointer stays in a register across the
+        // stores to the new list.
+        let (sensors, verdict) = (&self.sensors[..], &self.verdict);
         let (first, second) = self.obs.slices(range);
         let mut verdicts = Vec::with_capacity(n);
         // Fewer than two pairs are never solved: no inliers. A verdict
@@ -1121,6 +1188,114 @@ impl InlierAge {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// A steady scene: a star camera (5 stars every 100 ms) and a
+    /// magnetometer (100 Hz, every seventh sample a stray field), a gyro at
+    /// 100 Hz, a slow constant slew; inputs in time order up to `end_ms`.
+    fn slewing_scene(end_ms: i64) -> Vec<Input> {
+        const MS: i64 = 1_000_000;
+        let w = Vector3::new(0.01, -0.02, 0.015);
+        let q0 = UnitQuaternion::from_scaled_axis(Vector3::new(0.2, -0.1, 0.4));
+        let attitude = |ms: i64| UnitQuaternion::from_scaled_axis(-w * (ms as f64 * 1e-3)) * q0;
+        let star = |k: i64| {
+            let x = k as f64;
+            Vector3::new((1.3 * x).sin(), (0.7 * x).cos(), 0.4 + 0.1 * x.sin()).normalize()
+        };
+        let mag = Vector3::new(0.2, 0.9, -0.4).normalize();
+        let obs = |sensor: &str, seq: u64, ms: i64, b: Vector3<f64>, r: Vector3<f64>, sigma| {
+            Input::Obs(ValidObs {
+                sensor: sensor.into(),
+                seq,
+                t: ms * MS,
+                b: b.into(),
+                r: r.into(),
+                sigma: Some(sigma),
+            })
+        };
+        let mut inputs = Vec::new();
+        let (mut star_seq, mut mag_seq) = (0u64, 0u64);
+        for ms in 0..end_ms {
+            let a = attitude(ms);
+            if ms % 10 == 0 {
+                inputs.push(Input::Rate(wahbad_protocol::ValidRate {
+                    sensor: "gyro".into(),
+                    seq: (ms / 10) as u64,
+                    t: ms * MS,
+                    w: w.into(),
+                }));
+            }
+            if ms % 100 == 3 {
+                for k in 0..5 {
+                    let r = star(ms / 100 * 5 + k);
+                    inputs.push(obs("st", star_seq, ms, a * r, r, 2e-4));
+                    star_seq += 1;
+                }
+            }
+            if ms % 10 == 5 {
+                let b = if mag_seq % 7 == 0 {
+                    Vector3::x()
+                } else {
+                    a * mag
+                };
+                inputs.push(obs("mag", mag_seq, ms, b, mag, 3e-3));
+                mag_seq += 1;
+            }
+        }
+        inputs
+    }
+
+    #[test]
+    fn one_pass_tally_and_verdicts_match_the_two_passes() {
+        // Derived in the test: after each epoch, the fused pass must give the
+        // counts, the age sums (to the bit: the same sums in the same order)
+        // and the verdict list of `tally_inliers` followed by `verdict_list`,
+        // also on windows that straddle the ring's end (a small ring wraps
+        // every few seconds).
+        let config = EstimatorConfig {
+            max_window_obs: 300,
+            ..EstimatorConfig::default()
+        };
+        let mut est = Estimator::new(config).unwrap();
+        est.set_verdicts(true);
+        let (mut out, mut checked, mut straddling, mut outliers) = (Vec::new(), 0, 0, 0);
+        for input in slewing_scene(8_000) {
+            est.ingest(input, &mut out).unwrap();
+            let Some(epoch) = out.iter().rev().find_map(|o| match o {
+                Output::Solution(s) if s.status == SolutionStatus::Ok => Some(s.t),
+                _ => None,
+            }) else {
+                out.clear();
+                continue;
+            };
+            out.clear();
+            let range = est.obs.range(epoch - est.checked.span_ns, epoch);
+            let (first, second) = est.obs.slices(range.clone());
+            straddling += (!first.is_empty() && !second.is_empty()) as usize;
+            let mut two_pass = est.clone();
+            let (age, list) = est
+                .tally_with_verdicts(epoch, range.clone())
+                .expect("a solved window is the usual case");
+            let want_age = two_pass.tally_inliers(epoch, range.clone(), true);
+            let want_list = two_pass.verdict_list(range);
+            assert_eq!(est.counts, two_pass.counts, "epoch {epoch}");
+            assert_eq!(
+                age.weighted.to_bits(),
+                want_age.weighted.to_bits(),
+                "epoch {epoch}"
+            );
+            assert_eq!(
+                age.total.to_bits(),
+                want_age.total.to_bits(),
+                "epoch {epoch}"
+            );
+            assert_eq!(list, want_list, "epoch {epoch}");
+            outliers += list.iter().filter(|v| !v.inlier).count();
+            checked += 1;
+        }
+        assert!(checked > 50, "{checked} epochs checked");
+        assert!(straddling > 0, "no window straddled the ring's end");
+        assert!(outliers > 0, "the stray fields were all let in");
+    }
 
     #[test]
     fn inlier_age_weights_by_information() {
