@@ -166,12 +166,12 @@ fn gate<const PROFILE: bool>(
         let bits = is_in.move_mask();
         w_out.copy_from_slice(&w.to_array());
         c2.copy_from_slice(&e2.to_array());
-        for (l, flag) in inl.iter_mut().enumerate() {
-            let now = (bits >> l) & 1 == 1;
-            changed |= now != *flag;
-            *flag = now;
-            count += now as usize;
-        }
+        // Both flags as two bits, against the old two at once.
+        let before = inl[0] as i32 | (inl[1] as i32) << 1;
+        changed |= bits != before;
+        inl[0] = bits & 1 != 0;
+        inl[1] = bits & 2 != 0;
+        count += bits.count_ones() as usize;
     }
     let total = |v: f64x2| {
         let [a, b] = v.to_array();
