@@ -318,12 +318,15 @@ fn verdicts_alone_also_mark_outliers() {
     let mut solutions: Vec<Solution> = (0..30).map(|i| solution(i, 30)).collect();
     for s in &mut solutions {
         s.sensors.clear();
-        s.verdicts = Some(vec![ObsVerdict {
-            sensor: "star".into(),
-            seq: s.t as u64,
-            residual: 1e-4,
-            inlier: s.t != 2 * NS,
-        }]);
+        s.verdicts = Some(
+            vec![ObsVerdict {
+                sensor: "star".into(),
+                seq: s.t as u64,
+                residual: 1e-4,
+                inlier: s.t != 2 * NS,
+            }]
+            .into(),
+        );
     }
     let doc = parse(&render(&solutions, &[], None, 0.7, "verdicts"));
     let marks = with_class(&doc, "outlier-mark");

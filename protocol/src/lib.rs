@@ -71,6 +71,9 @@ pub use frame::{
 pub mod message;
 pub use message::*;
 
+pub mod verdicts;
+pub use verdicts::{UnknownSensorIndex, VerdictEntry, VerdictIter, VerdictList, VerdictRef};
+
 pub mod validate;
 pub use validate::{
     check_sensor_id, validate_obs, validate_rate, validate_truth, SensorIdFault, ValidObs,

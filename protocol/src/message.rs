@@ -367,7 +367,7 @@ pub struct Solution {
     pub sensors: Vec<SensorCount>,
     /// Per-observation verdicts; absent when the subscriber asked for none.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub verdicts: Option<Vec<ObsVerdict>>,
+    pub verdicts: Option<crate::verdicts::VerdictList>,
     /// Extension key: `false` when no rate samples reached this window and it
     /// was treated as static. Absent means rates were used.
     #[serde(default, skip_serializing_if = "Option::is_none")]

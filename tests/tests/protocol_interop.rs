@@ -91,12 +91,15 @@ fn python_encoded_expected() -> Vec<Message> {
                 n: 2,
                 n_inliers: 1,
             }],
-            verdicts: Some(vec![ObsVerdict {
-                sensor: "sun".into(),
-                seq: 5,
-                residual: 0.25,
-                inlier: true,
-            }]),
+            verdicts: Some(
+                vec![ObsVerdict {
+                    sensor: "sun".into(),
+                    seq: 5,
+                    residual: 0.25,
+                    inlier: true,
+                }]
+                .into(),
+            ),
             propagated: Some(false),
         }),
         Message::Alert(Alert {
@@ -127,20 +130,21 @@ fn python_encoded_expected() -> Vec<Message> {
 
 /// The frames this side writes; `EXPECTED` in the script mirrors them.
 fn rust_encoded() -> Vec<Message> {
-    let solution = |status, q, cov, sensors, verdicts, propagated| Solution {
-        t: 0,
-        q,
-        cov,
-        status,
-        inlier_fraction: 0.0,
-        n: 0,
-        n_inliers: 0,
-        method: String::new(),
-        iterations: 0,
-        sensors,
-        verdicts,
-        propagated,
-    };
+    let solution =
+        |status, q, cov, sensors, verdicts: Option<Vec<ObsVerdict>>, propagated| Solution {
+            t: 0,
+            q,
+            cov,
+            status,
+            inlier_fraction: 0.0,
+            n: 0,
+            n_inliers: 0,
+            method: String::new(),
+            iterations: 0,
+            sensors,
+            verdicts: verdicts.map(Into::into),
+            propagated,
+        };
     vec![
         Message::Hello(Hello {
             version: 1,

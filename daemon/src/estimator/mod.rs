@@ -75,11 +75,12 @@ pub mod propagate;
 pub mod window;
 
 use std::collections::BTreeMap;
+use std::sync::Arc;
 
 use nalgebra::{Matrix3, UnitQuaternion, Vector3};
 use wahbad_protocol::{
-    Alert, AlertState, ObsVerdict, SensorCount, SensorName, Solution, SolutionStatus, ValidObs,
-    ValidRate, ValidTruth,
+    Alert, AlertState, SensorCount, SensorName, Solution, SolutionStatus, ValidObs, ValidRate,
+    ValidTruth, VerdictEntry, VerdictList,
 };
 
 pub use alert::{LevelAlert, StaleAlert};
@@ -236,6 +237,8 @@ pub struct Estimator {
     checked: Checked,
     solver: Solver,
     sensors: Vec<SensorState>,
+    /// The sensors' names by index, shared with every verdict list.
+    sensor_names: Arc<[SensorName]>,
     sensor_by_name: BTreeMap<String, u16>,
     /// Sensor indices in name order.
     sensor_order: Vec<u16>,
@@ -304,6 +307,7 @@ impl Estimator {
         let mut estimator = Estimator {
             solver: Solver::new(checked.solve.clone()),
             sensors: Vec::with_capacity(config.max_sensors),
+            sensor_names: Arc::from(Vec::new()),
             sensor_by_name: BTreeMap::new(),
             sensor_order: Vec::with_capacity(config.max_sensors),
             obs: ObsBuffer::with_capacity(config.max_window_obs),
@@ -408,6 +412,8 @@ impl Estimator {
             .partition_point(|&i| self.sensors[i as usize].name < name);
         self.sensor_order.insert(at, idx);
         self.sensors.push(state);
+        // Rebuilt per new sensor (a handful per run); lists already out keep theirs.
+        self.sensor_names = self.sensors.iter().map(|s| s.name.clone()).collect();
         self.sensor_by_name.insert(name, idx);
         idx
     }
@@ -953,16 +959,16 @@ impl Estimator {
         &mut self,
         epoch: i64,
         range: std::ops::Range<usize>,
-    ) -> Option<(InlierAge, Vec<ObsVerdict>)> {
+    ) -> Option<(InlierAge, VerdictList)> {
         let n = range.len();
         let (verdict, inv_var) = (&self.verdict, self.solver.loaded().inv_var);
         if n < 2 || verdict.residuals.len() < n || verdict.inliers.len() < n || inv_var.len() < n {
             return None;
         }
-        let (sensors, counts) = (&self.sensors[..], &mut self.counts);
+        let counts = &mut self.counts;
         let (first, second) = self.obs.slices(range);
         let mut age = InlierAge::default();
-        let mut verdicts = Vec::with_capacity(n);
+        let mut verdicts = VerdictList::with_names(self.sensor_names.clone(), n);
         for (obs, offset) in [(first, 0), (second, first.len())] {
             let end = offset + obs.len();
             let marks = verdict.residuals[offset..end]
@@ -971,34 +977,32 @@ impl Estimator {
                 .zip(&inv_var[offset..end]);
             // One `extend` per part writes the entries in place (a `push`
             // per entry measured slower).
-            verdicts.extend(
-                obs.iter()
-                    .zip(marks)
-                    .map(|(obs, ((&residual, &inlier), &w))| {
-                        counts[obs.sensor_idx as usize].1 += inlier as u32;
-                        // Branch-free: an outlier adds weight 0, which leaves the sums as they are.
-                        age.add(if inlier { w } else { 0.0 }, epoch - obs.t);
-                        ObsVerdict {
-                            sensor: sensors[obs.sensor_idx as usize].name.clone(),
-                            seq: obs.seq,
-                            residual,
-                            inlier,
-                        }
-                    }),
-            );
+            let entries = obs
+                .iter()
+                .zip(marks)
+                .map(|(obs, ((&residual, &inlier), &w))| {
+                    counts[obs.sensor_idx as usize].1 += inlier as u32;
+                    // Branch-free: an outlier adds weight 0, which leaves the sums as they are.
+                    age.add(if inlier { w } else { 0.0 }, epoch - obs.t);
+                    VerdictEntry {
+                        seq: obs.seq,
+                        residual,
+                        sensor: obs.sensor_idx as u32,
+                        inlier,
+                    }
+                });
+            verdicts.extend_indexed(entries).ok()?;
         }
         Some((age, verdicts))
     }
 
     /// The per-observation verdicts of the window `range`, in order.
     #[inline(never)]
-    fn verdict_list(&self, range: std::ops::Range<usize>) -> Vec<ObsVerdict> {
+    fn verdict_list(&self, range: std::ops::Range<usize>) -> VerdictList {
         let n = range.len();
-        // A slice, not the `Vec`: its pointer stays in a register across the
-        // stores to the new list.
-        let (sensors, verdict) = (&self.sensors[..], &self.verdict);
+        let verdict = &self.verdict;
         let (first, second) = self.obs.slices(range);
-        let mut verdicts = Vec::with_capacity(n);
+        let mut verdicts = VerdictList::with_names(self.sensor_names.clone(), n);
         // Fewer than two pairs are never solved: no inliers. A verdict
         // shorter than the window (not expected) marks the rest as outliers at `π`.
         let solved = n >= 2;
@@ -1010,36 +1014,37 @@ impl Estimator {
                 .copied()
                 .unwrap_or(std::f64::consts::PI)
         };
-        let entry = |obs: &BufferedObs, residual: f64, inlier: bool| ObsVerdict {
-            sensor: sensors[obs.sensor_idx as usize].name.clone(),
+        let entry = |obs: &BufferedObs, residual: f64, inlier: bool| VerdictEntry {
             seq: obs.seq,
             residual,
+            sensor: obs.sensor_idx as u32,
             inlier,
         };
+        // The indices are the sensor table's own: a refusal would be a bug, said aloud.
+        let mut add = |entries: &mut dyn Iterator<Item = VerdictEntry>| {
+            if let Err(err) = verdicts.extend_indexed(entries) {
+                tracing::error!(%err, "verdicts left out of a solution");
+            }
+        };
         if verdict.residuals.len() >= n && verdict.inliers.len() >= n {
-            // The usual case: zipped slices, no index checks. One `extend`
-            // per part writes the entries in place (a `push` per entry built
-            // each on the stack and copied it).
+            // The usual case: zipped slices, no index checks.
             let split = first.len();
             for (obs, offset) in [(first, 0), (second, split)] {
                 let end = offset + obs.len();
                 let residuals = &verdict.residuals[offset..end];
                 let inliers = &verdict.inliers[offset..end];
-                verdicts.extend(
-                    obs.iter()
-                        .zip(residuals)
-                        .zip(inliers)
-                        .map(|((obs, &residual), &inlier)| entry(obs, residual, solved && inlier)),
-                );
+                add(&mut obs
+                    .iter()
+                    .zip(residuals)
+                    .zip(inliers)
+                    .map(|((obs, &residual), &inlier)| entry(obs, residual, solved && inlier)));
             }
         } else {
-            verdicts.extend(
-                first
-                    .iter()
-                    .chain(second)
-                    .enumerate()
-                    .map(|(i, obs)| entry(obs, angle(i), flag(i))),
-            );
+            add(&mut first
+                .iter()
+                .chain(second)
+                .enumerate()
+                .map(|(i, obs)| entry(obs, angle(i), flag(i))));
         }
         verdicts
     }

@@ -78,7 +78,7 @@ pub(crate) fn sensor_names(solutions: &[Solution]) -> Vec<String> {
     let mut names: Vec<String> = Vec::new();
     for solution in solutions {
         let from_counts = solution.sensors.iter().map(|c| &c.sensor);
-        let from_verdicts = solution.verdicts.iter().flatten().map(|v| &v.sensor);
+        let from_verdicts = solution.verdicts.iter().flatten().map(|v| v.sensor);
         for name in from_counts.chain(from_verdicts) {
             if !names.iter().any(|n| n == name) {
                 names.push(name.to_string());

@@ -197,12 +197,15 @@ mod tests {
             method: "auto".into(),
             iterations: 3,
             sensors: vec![],
-            verdicts: Some(vec![ObsVerdict {
-                sensor: "cam".into(),
-                seq: 42,
-                residual: 1e-3,
-                inlier: false,
-            }]),
+            verdicts: Some(
+                vec![ObsVerdict {
+                    sensor: "cam".into(),
+                    seq: 42,
+                    residual: 1e-3,
+                    inlier: false,
+                }]
+                .into(),
+            ),
             propagated: None,
         }
     }

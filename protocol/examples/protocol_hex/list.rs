@@ -89,20 +89,23 @@ pub fn doc_examples() -> Vec<(&'static str, Message)> {
                         n_inliers: 1,
                     },
                 ],
-                verdicts: Some(vec![
-                    ObsVerdict {
-                        sensor: "sun".into(),
-                        seq: 7,
-                        residual: 0.0001,
-                        inlier: true,
-                    },
-                    ObsVerdict {
-                        sensor: "mag".into(),
-                        seq: 3,
-                        residual: 0.002,
-                        inlier: true,
-                    },
-                ]),
+                verdicts: Some(
+                    vec![
+                        ObsVerdict {
+                            sensor: "sun".into(),
+                            seq: 7,
+                            residual: 0.0001,
+                            inlier: true,
+                        },
+                        ObsVerdict {
+                            sensor: "mag".into(),
+                            seq: 3,
+                            residual: 0.002,
+                            inlier: true,
+                        },
+                    ]
+                    .into(),
+                ),
                 propagated: None,
             }),
         ),

@@ -16,7 +16,7 @@ pub fn solution(sensors: Vec<SensorCount>, verdicts: Option<Vec<ObsVerdict>>) ->
         method: "gnc-tls".into(),
         iterations: 17,
         sensors,
-        verdicts,
+        verdicts: verdicts.map(Into::into),
         propagated: Some(false),
     }
 }
