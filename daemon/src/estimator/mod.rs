@@ -847,11 +847,13 @@ impl Estimator {
         buf.pairs.resize(len, blank);
         buf.inv_var.resize(len, 0.0);
         buf.gate_chord2.resize(len, 0.0);
-        let weigh = |obs: &mut [BufferedObs],
-                     pairs: &mut [Pair],
-                     inv_var: &mut [f64],
-                     gate: &mut [f64],
-                     counts: &mut [(u32, u32)]| {
+        // New observations come in time order: each hold search starts at the last one's.
+        let mut hold = usize::MAX;
+        let mut weigh = |obs: &mut [BufferedObs],
+                         pairs: &mut [Pair],
+                         inv_var: &mut [f64],
+                         gate: &mut [f64],
+                         counts: &mut [(u32, u32)]| {
             let slots = pairs
                 .iter_mut()
                 .zip(inv_var.iter_mut().zip(gate.iter_mut()));
@@ -865,7 +867,7 @@ impl Estimator {
                             let k = match last_k {
                                 Some((t, k)) if t == obs.t => k,
                                 _ => {
-                                    let k = rates.anchored(obs.t);
+                                    let k = rates.anchored_from(obs.t, &mut hold);
                                     last_k = Some((obs.t, k));
                                     k
                                 }

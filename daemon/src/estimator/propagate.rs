@@ -171,6 +171,43 @@ impl RateBuffer {
         segment(&held.sample.w, t - held.from) * held.k_from
     }
 
+    /// [`Self::anchored`] for times taken in increasing order: `hold` is the
+    /// hold the last call found (start at 0), and the search walks forward
+    /// from it a few holds before it falls back to the binary search. The
+    /// same hold is found, so the same rotation.
+    pub fn anchored_from(&self, t: i64, hold: &mut usize) -> UnitQuaternion<f64> {
+        let j = match self.samples.get(*hold) {
+            Some(h) if h.from <= t => {
+                let mut j = *hold;
+                let mut steps = 0;
+                while steps < HOLD_WALK
+                    && j + 1 < self.samples.len()
+                    && self.samples[j + 1].from <= t
+                {
+                    j += 1;
+                    steps += 1;
+                }
+                if steps < HOLD_WALK {
+                    j
+                } else {
+                    self.hold_at(t)
+                }
+            }
+            _ => self.hold_at(t),
+        };
+        *hold = j;
+        let held = &self.samples[j];
+        segment(&held.sample.w, t - held.from) * held.k_from
+    }
+
+    /// The index of the hold `t` falls in (the last one starting at or before it).
+    fn hold_at(&self, t: i64) -> usize {
+        assert!(!self.samples.is_empty(), "rate propagation without samples");
+        self.samples
+            .partition_point(|h| h.from <= t)
+            .saturating_sub(1)
+    }
+
     /// `C(t→E)`: the rotation carrying a body vector seen at `t` to `epoch`.
     pub fn carry(&self, t: i64, epoch: i64) -> UnitQuaternion<f64> {
         self.anchored(epoch) * self.anchored(t).inverse()
@@ -188,6 +225,9 @@ impl RateBuffer {
         self.generation
     }
 }
+
+/// Holds [`RateBuffer::anchored_from`] walks before it searches.
+const HOLD_WALK: usize = 8;
 
 /// Rotation angle up to which [`segment`] uses its series (rad).
 const SERIES_MAX_ANGLE: f64 = 0.1;
@@ -391,6 +431,39 @@ mod tests {
         let gen = rates.generation();
         assert!(rates.insert(varied(11), rates.len()));
         assert_ne!(rates.generation(), gen);
+    }
+
+    #[test]
+    fn the_walking_hold_search_finds_the_binary_searchs_rotation() {
+        // Derived in the test: for times in increasing order, from any
+        // starting hint (fresh, stale, past the end, ahead of `t`), and for
+        // jumps beyond the walk, `anchored_from` gives `anchored` to the bit.
+        let mut rates = RateBuffer::default();
+        for i in 0..40 {
+            rates.insert(varied(i), 100);
+        }
+        // Holds start every 10 ms: steps within one hold, of a few holds,
+        // of more than the walk (12 ms → 150 ms), and to the last hold.
+        let times: Vec<i64> = [
+            3, 7, 7, 12, 95, 96, 200, 201, 202, 1_500, 1_510, 3_900, 3_950,
+        ]
+        .map(|tenths_ms| tenths_ms * MS / 10)
+        .to_vec();
+        for start in [usize::MAX, 0, 5, 39, 1000] {
+            let mut hold = start;
+            for &t in &times {
+                let (got, want) = (rates.anchored_from(t, &mut hold), rates.anchored(t));
+                assert_eq!(got.coords, want.coords, "start {start}, t {t}");
+            }
+        }
+        // Before the first hold (extrapolated back) and past the last.
+        let mut hold = 20;
+        for t in [-5 * MS, 10_000 * MS] {
+            assert_eq!(
+                rates.anchored_from(t, &mut hold).coords,
+                rates.anchored(t).coords
+            );
+        }
     }
 
     #[test]
