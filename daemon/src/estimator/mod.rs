@@ -993,7 +993,11 @@ impl Estimator {
                         inlier,
                     }
                 });
-            verdicts.extend_indexed(entries).ok()?;
+            // The indices are the sensor table's own: a refusal would be a
+            // bug, said aloud (the counts above are kept, so no fallback).
+            if let Err(err) = verdicts.extend_indexed(entries) {
+                tracing::error!(%err, "verdicts left out of a solution");
+            }
         }
         Some((age, verdicts))
     }
